@@ -1,0 +1,33 @@
+//! The command line: flags are parsed and validated here into the library's
+//! option structs; each subcommand lives in its own file and calls one
+//! library stage. Errors print as `horosphere: <message>` on stderr with
+//! exit status 1 (2 for usage errors, from clap).
+
+use clap::{Parser, Subcommand};
+use std::process::ExitCode;
+
+/// Cortical surfaces of a cohort to one common sphere. Research use only:
+/// not a medical device; results need review by a trained analyst.
+#[derive(Parser, Debug)]
+#[command(name = "horosphere", version, about, long_about = None)]
+pub struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand, Debug)]
+enum Command {
+}
+
+/// Run the command line and return the exit status.
+pub fn main() -> ExitCode {
+    let cli = Cli::parse();
+    let result: horosphere::Result<ExitCode> = match cli.command {};
+    match result {
+        Ok(code) => code,
+        Err(e) => {
+            eprintln!("horosphere: {e}");
+            ExitCode::FAILURE
+        }
+    }
+}

@@ -1,0 +1,265 @@
+//! Combinatorics of an indexed triangle mesh that may be anything: open,
+//! non-manifold, several pieces.
+//!
+//! In: a [`TriMesh`] (only its faces matter). Out: the undirected edge table
+//! with the faces on each edge, connected components, boundary loops and the
+//! Euler characteristic `V - E + F = 2 - 2g - b` per component (Massey, "A
+//! basic course in algebraic topology", 1991). Edges are identified here by
+//! their end vertices, which is right for an indexed mesh; the halfedge
+//! Delta-complex ([`super::halfedge`]) never does that.
+
+use super::TriMesh;
+
+/// One side of an edge: face `face` traverses the edge from its corner `slot`
+/// to corner `(slot + 1) % 3`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Incidence {
+    pub face: u32,
+    pub slot: u8,
+}
+
+/// Undirected edges of a mesh with their incident faces (CSR layout).
+///
+/// `edges[e] = [a, b]` with `a < b`; the faces on edge `e` are
+/// `incidences[offsets[e]..offsets[e + 1]]`. Corner pairs of degenerate faces
+/// with a repeated index (`a == a`) are not edges and are left out.
+#[derive(Debug, Clone, Default)]
+pub struct EdgeTable {
+    pub edges: Vec<[u32; 2]>,
+    pub offsets: Vec<u32>,
+    pub incidences: Vec<Incidence>,
+}
+
+impl EdgeTable {
+    /// Build the table by sorting the face sides (O(F log F)).
+    pub fn new(mesh: &TriMesh) -> Self {
+        let mut sides: Vec<(u64, Incidence)> = Vec::with_capacity(mesh.faces.len() * 3);
+        for (f, t) in mesh.faces.iter().enumerate() {
+            for k in 0..3 {
+                let (a, b) = (t[k], t[(k + 1) % 3]);
+                if a == b {
+                    continue;
+                }
+                let key = ((a.min(b) as u64) << 32) | a.max(b) as u64;
+                sides.push((
+                    key,
+                    Incidence {
+                        face: f as u32,
+                        slot: k as u8,
+                    },
+                ));
+            }
+        }
+        sides.sort_unstable_by_key(|&(k, inc)| (k, inc.face, inc.slot));
+        let mut edges = Vec::with_capacity(sides.len() / 2 + 1);
+        let mut offsets = Vec::with_capacity(sides.len() / 2 + 2);
+        let mut incidences = Vec::with_capacity(sides.len());
+        let mut last = u64::MAX;
+        for (key, inc) in sides {
+            if key != last {
+                offsets.push(incidences.len() as u32);
+                edges.push([(key >> 32) as u32, key as u32]);
+                last = key;
+            }
+            incidences.push(inc);
+        }
+        offsets.push(incidences.len() as u32);
+        EdgeTable {
+            edges,
+            offsets,
+            incidences,
+        }
+    }
+
+    /// Number of undirected edges.
+    pub fn len(&self) -> usize {
+        self.edges.len()
+    }
+
+    /// True when there are no edges.
+    pub fn is_empty(&self) -> bool {
+        self.edges.is_empty()
+    }
+
+    /// The faces on edge `e`.
+    pub fn faces_of(&self, e: usize) -> &[Incidence] {
+        &self.incidences[self.offsets[e] as usize..self.offsets[e + 1] as usize]
+    }
+
+    /// Number of faces on edge `e` (1: boundary, 2: manifold, more: non-manifold).
+    pub fn valence(&self, e: usize) -> usize {
+        (self.offsets[e + 1] - self.offsets[e]) as usize
+    }
+}
+
+/// Disjoint-set forest with path halving and union by size.
+#[derive(Debug, Clone)]
+pub struct UnionFind {
+    parent: Vec<u32>,
+    size: Vec<u32>,
+}
+
+impl UnionFind {
+    /// `n` singletons.
+    pub fn new(n: usize) -> Self {
+        UnionFind {
+            parent: (0..n as u32).collect(),
+            size: vec![1; n],
+        }
+    }
+
+    /// Representative of `x`'s set.
+    pub fn find(&mut self, mut x: u32) -> u32 {
+        while self.parent[x as usize] != x {
+            let p = self.parent[x as usize];
+            self.parent[x as usize] = self.parent[p as usize];
+            x = self.parent[x as usize];
+        }
+        x
+    }
+
+    /// Merge the sets of `a` and `b`; true if they were apart.
+    pub fn union(&mut self, a: u32, b: u32) -> bool {
+        let (mut ra, mut rb) = (self.find(a), self.find(b));
+        if ra == rb {
+            return false;
+        }
+        if self.size[ra as usize] < self.size[rb as usize] {
+            std::mem::swap(&mut ra, &mut rb);
+        }
+        self.parent[rb as usize] = ra;
+        self.size[ra as usize] += self.size[rb as usize];
+        true
+    }
+}
+
+/// Connected components of the faces (two faces are connected when they share
+/// a vertex). Returns the component of every face, numbered 0.. in order of
+/// decreasing face count (ties: smallest first face first), and the count.
+pub fn face_components(mesh: &TriMesh) -> (Vec<u32>, usize) {
+    let mut uf = UnionFind::new(mesh.n_vertices());
+    for t in &mesh.faces {
+        uf.union(t[0], t[1]);
+        uf.union(t[1], t[2]);
+    }
+    let roots: Vec<u32> = mesh.faces.iter().map(|t| uf.find(t[0])).collect();
+    // Number the roots by first appearance, then order by size.
+    let mut id_of_root = std::collections::HashMap::new();
+    let mut counts: Vec<(usize, usize)> = Vec::new(); // (faces, first face)
+    let mut first_ids = Vec::with_capacity(roots.len());
+    for (f, r) in roots.iter().enumerate() {
+        let id = *id_of_root.entry(*r).or_insert_with(|| {
+            counts.push((0, f));
+            counts.len() - 1
+        });
+        counts[id].0 += 1;
+        first_ids.push(id);
+    }
+    let mut order: Vec<usize> = (0..counts.len()).collect();
+    order.sort_by_key(|&i| (std::cmp::Reverse(counts[i].0), counts[i].1));
+    let mut rank = vec![0u32; counts.len()];
+    for (r, &i) in order.iter().enumerate() {
+        rank[i] = r as u32;
+    }
+    let comp = first_ids.iter().map(|&i| rank[i]).collect();
+    (comp, counts.len())
+}
+
+/// A closed loop of boundary edges, as vertices in order (the face lies to
+/// the left when walking the loop in this order, i.e. the loop follows the
+/// faces' own edge direction).
+pub type BoundaryLoop = Vec<u32>;
+
+/// Boundary loops: chains of edges that have exactly one face. Where a vertex
+/// has several boundary edges leaving it (a non-manifold boundary vertex), the
+/// walk takes the first unused one, so every boundary edge lies on exactly one
+/// returned loop.
+pub fn boundary_loops(mesh: &TriMesh, edges: &EdgeTable) -> Vec<BoundaryLoop> {
+    // Directed boundary sides a -> b as in their face.
+    let mut out: Vec<(u32, u32)> = Vec::new();
+    for e in 0..edges.len() {
+        if edges.valence(e) == 1 {
+            let inc = edges.faces_of(e)[0];
+            let t = mesh.faces[inc.face as usize];
+            out.push((t[inc.slot as usize], t[(inc.slot as usize + 1) % 3]));
+        }
+    }
+    out.sort_unstable();
+    let mut used = vec![false; out.len()];
+    let first_from = |v: u32, out: &[(u32, u32)]| out.partition_point(|&(a, _)| a < v);
+    let mut loops = Vec::new();
+    for start in 0..out.len() {
+        if used[start] {
+            continue;
+        }
+        let mut lp = Vec::new();
+        let mut cur = start;
+        loop {
+            used[cur] = true;
+            let (a, b) = out[cur];
+            lp.push(a);
+            let mut k = first_from(b, &out);
+            let mut found = None;
+            while k < out.len() && out[k].0 == b {
+                if !used[k] {
+                    found = Some(k);
+                    break;
+                }
+                k += 1;
+            }
+            match found {
+                Some(k) => cur = k,
+                None => break,
+            }
+        }
+        loops.push(lp);
+    }
+    loops
+}
+
+#[cfg(test)]
+mod tests {
+    use super::super::shapes::{icosphere, torus};
+    use super::*;
+
+    fn euler(mesh: &TriMesh) -> i64 {
+        let e = EdgeTable::new(mesh);
+        mesh.n_vertices() as i64 - e.len() as i64 + mesh.n_faces() as i64
+    }
+
+    #[test]
+    fn euler_characteristic_of_known_surfaces() {
+        // V - E + F = 2 - 2g - b (Massey 1991): sphere 2, torus 0.
+        assert_eq!(euler(&icosphere(3, 1.0)), 2);
+        assert_eq!(euler(&torus(3.0, 1.0, 24, 12)), 0);
+    }
+
+    #[test]
+    fn boundary_loop_of_a_punctured_sphere() {
+        let mut m = icosphere(2, 1.0);
+        // Remove the five faces around vertex 0: one pentagonal hole.
+        m.faces.retain(|t| !t.contains(&0));
+        let e = EdgeTable::new(&m);
+        let loops = boundary_loops(&m, &e);
+        assert_eq!(loops.len(), 1);
+        assert_eq!(loops[0].len(), 5);
+        let (comp, n) = face_components(&m);
+        assert_eq!(n, 1);
+        assert!(comp.iter().all(|&c| c == 0));
+    }
+
+    #[test]
+    fn components_are_ordered_by_size() {
+        let a = icosphere(1, 1.0);
+        let b = icosphere(0, 1.0);
+        let off = b.n_vertices() as u32;
+        let mut m = b.clone();
+        m.positions.extend(a.positions.iter().map(|p| [p[0] + 5.0, p[1], p[2]]));
+        m.faces
+            .extend(a.faces.iter().map(|t| [t[0] + off, t[1] + off, t[2] + off]));
+        let (comp, n) = face_components(&m);
+        assert_eq!(n, 2);
+        assert_eq!(comp[0], 1, "the small icosahedron comes second");
+        assert_eq!(comp[b.n_faces()], 0);
+    }
+}
