@@ -139,10 +139,9 @@ impl Halfedges {
             i = j;
         }
         let mut vertex_half = vec![u32::MAX; n_vertices];
-        for h in 0..nh {
-            let v = tail[h] as usize;
-            if vertex_half[v] == u32::MAX {
-                vertex_half[v] = h as u32;
+        for (h, &v) in tail.iter().enumerate() {
+            if vertex_half[v as usize] == u32::MAX {
+                vertex_half[v as usize] = h as u32;
             }
         }
         if let Some(v) = vertex_half.iter().position(|&h| h == u32::MAX) {
