@@ -61,10 +61,11 @@ fn rich() -> Gifti {
     let mesh = icosphere(2, 100.0);
     let mut g = Gifti::from_mesh(&mesh);
     g.meta.set("Subject", "sub-01 <&> \"quoted\" 'single'");
-    g.meta.set("Note", "unicode: \u{00e9}\u{00df}\u{4e2d} tab\there");
+    g.meta
+        .set("Note", "unicode: \u{00e9}\u{00df}\u{4e2d} tab\there");
     let mut t = CoordTransform::identity_unknown();
     t.data_space = "NIFTI_XFORM_SCANNER_ANAT".into();
-    t.transformed_space = "NIFTI_XFORM_TALAIRACH".into();
+    t.transformed_space = "NIFTI_XFORM_ALIGNED_ANAT".into();
     t.matrix = [
         [0.9, 0.1, 0.0, -1.25],
         [-0.1, 0.9, 0.05, 3.5],
@@ -72,7 +73,9 @@ fn rich() -> Gifti {
         [0.0, 0.0, 0.0, 1.0],
     ];
     g.arrays[0].transforms = vec![t];
-    g.arrays[0].meta.set("AnatomicalStructurePrimary", "CortexLeft");
+    g.arrays[0]
+        .meta
+        .set("AnatomicalStructurePrimary", "CortexLeft");
     let n = mesh.n_vertices();
     let mut rng = Lcg(42);
     let shape: Vec<f32> = (0..n).map(|_| (rng.unit() * 6.0 - 1.0) as f32).collect();
@@ -226,8 +229,7 @@ fn round_trip_every_encoding_byte_order_index_order() {
     let g = rich();
     for opts in all_options() {
         let bytes = gifti::to_bytes(&g, &opts).unwrap();
-        let back = gifti::parse(&bytes, vpath())
-            .unwrap_or_else(|e| panic!("{opts:?}: {e}"));
+        let back = gifti::parse(&bytes, vpath()).unwrap_or_else(|e| panic!("{opts:?}: {e}"));
         // Exact equality, float32 and float64 included: binary encodings
         // copy bits and ASCII uses shortest round-trip decimal text.
         assert_eq!(back, g, "{opts:?}");
@@ -334,7 +336,10 @@ fn mesh_round_trip_rounds_to_f32_only() {
         .fold(0.0, f64::max);
     assert!(worst > 0.0 && worst <= 100.0 * f64::from(f32::EPSILON));
     let g = gifti::read(&p).unwrap();
-    assert_eq!(g.arrays[0].transforms, vec![CoordTransform::identity_unknown()]);
+    assert_eq!(
+        g.arrays[0].transforms,
+        vec![CoordTransform::identity_unknown()]
+    );
     std::fs::remove_dir_all(&dir).unwrap();
 }
 
@@ -460,7 +465,12 @@ fn external_file_outside_folder_is_refused() {
         );
     }
     std::fs::write(&inner, external_xml("missing.dat", 0)).unwrap();
-    assert_bad(gifti::read(&inner), &inner, "DataArray 0", &["cannot be opened"]);
+    assert_bad(
+        gifti::read(&inner),
+        &inner,
+        "DataArray 0",
+        &["cannot be opened"],
+    );
     std::fs::remove_dir_all(&dir).unwrap();
 }
 
@@ -515,7 +525,11 @@ fn convert_command_re_encodes_everything() {
     let bin = env!("CARGO_BIN_EXE_horosphere");
     for (flags, enc, endian) in [
         (vec![], "GZipBase64Binary", "LittleEndian"),
-        (vec!["--encoding", "base64", "--big-endian"], "Base64Binary", "BigEndian"),
+        (
+            vec!["--encoding", "base64", "--big-endian"],
+            "Base64Binary",
+            "BigEndian",
+        ),
         (vec!["--encoding", "ascii"], "ASCII", "LittleEndian"),
     ] {
         let out = dir.join("out.gii");
@@ -613,7 +627,12 @@ fn bad_corrupt_gzip() {
         &["GZipBase64Binary data"],
     );
     // Not a zlib stream at all.
-    let bad = format!("{}{}{}", &xml[..a], base64_encode(b"plain bytes"), &xml[b..]);
+    let bad = format!(
+        "{}{}{}",
+        &xml[..a],
+        base64_encode(b"plain bytes"),
+        &xml[b..]
+    );
     assert_bad(
         gifti::parse(bad.as_bytes(), vpath()),
         vpath(),
@@ -626,7 +645,11 @@ fn bad_corrupt_gzip() {
 fn bad_size_disagrees_with_dimensions() {
     let g = Gifti::from_mesh(&small_mesh());
     // Base64Binary: Dim0 says 5 triangles, data holds 4.
-    let xml = text_of(&g, b64_opts()).replacen("Dim0=\"4\" Dim1=\"3\" Encoding", "Dim0=\"5\" Dim1=\"3\" Encoding", 2);
+    let xml = text_of(&g, b64_opts()).replacen(
+        "Dim0=\"4\" Dim1=\"3\" Encoding",
+        "Dim0=\"5\" Dim1=\"3\" Encoding",
+        2,
+    );
     assert_bad(
         gifti::parse(xml.as_bytes(), vpath()),
         vpath(),
@@ -721,7 +744,11 @@ fn bad_face_indices() {
             g.to_mesh(vpath()),
             vpath(),
             "DataArray 1 (NIFTI_INTENT_TRIANGLE)",
-            &["triangle 0 has vertex", shown, "expected indices from 0 to 2"],
+            &[
+                "triangle 0 has vertex",
+                shown,
+                "expected indices from 0 to 2",
+            ],
         );
     }
     // Float triangles are the wrong type.
@@ -757,10 +784,20 @@ fn bad_empty_meshes() {
     );
     let only_points = r#"<GIFTI><DataArray Intent="NIFTI_INTENT_POINTSET" DataType="NIFTI_TYPE_FLOAT32" Dimensionality="2" Dim0="1" Dim1="3" Encoding="ASCII"><Data>0 0 0</Data></DataArray></GIFTI>"#;
     let g = gifti::parse(only_points.as_bytes(), vpath()).unwrap();
-    assert_bad(g.to_mesh(vpath()), vpath(), "file", &["no NIFTI_INTENT_TRIANGLE"]);
+    assert_bad(
+        g.to_mesh(vpath()),
+        vpath(),
+        "file",
+        &["no NIFTI_INTENT_TRIANGLE"],
+    );
     let nothing = r#"<GIFTI Version="1.0" NumberOfDataArrays="0"></GIFTI>"#;
     let g = gifti::parse(nothing.as_bytes(), vpath()).unwrap();
-    assert_bad(g.to_mesh(vpath()), vpath(), "file", &["no NIFTI_INTENT_POINTSET"]);
+    assert_bad(
+        g.to_mesh(vpath()),
+        vpath(),
+        "file",
+        &["no NIFTI_INTENT_POINTSET"],
+    );
     // Writing an empty mesh is refused, and nothing is left behind.
     let dir = scratch("empty");
     let p = dir.join("e.surf.gii");
@@ -773,18 +810,58 @@ fn bad_empty_meshes() {
 fn bad_unknown_encoding_datatype_and_attributes() {
     let xml = text_of(&Gifti::from_mesh(&small_mesh()), gz_opts());
     let cases: [(&str, &str, &str, &[&str]); 7] = [
-        ("Encoding=\"GZipBase64Binary\"", "Encoding=\"Zstd\"", "DataArray 0", &["unknown Encoding \"Zstd\"", "expected ASCII"]),
-        ("DataType=\"NIFTI_TYPE_FLOAT32\"", "DataType=\"NIFTI_TYPE_COMPLEX64\"", "DataArray 0 (NIFTI_INTENT_POINTSET)", &["unsupported DataType", "expected NIFTI_TYPE_FLOAT32"]),
-        ("Endian=\"LittleEndian\"", "Endian=\"Middle\"", "DataArray 0", &["unknown Endian"]),
-        ("ArrayIndexingOrder=\"RowMajorOrder\"", "ArrayIndexingOrder=\"Diagonal\"", "DataArray 0", &["unknown ArrayIndexingOrder"]),
-        ("Dimensionality=\"2\"", "Dimensionality=\"7\"", "DataArray 0", &["expected an integer from 1 to 6"]),
-        ("Dim1=\"3\"", "Dim1=\"-3\"", "DataArray 0", &["Dim1 is \"-3\"", "non-negative integer"]),
-        ("NumberOfDataArrays=\"2\"", "NumberOfDataArrays=\"3\"", "GIFTI", &["NumberOfDataArrays is 3 but the file has 2"]),
+        (
+            "Encoding=\"GZipBase64Binary\"",
+            "Encoding=\"Zstd\"",
+            "DataArray 0",
+            &["unknown Encoding \"Zstd\"", "expected ASCII"],
+        ),
+        (
+            "DataType=\"NIFTI_TYPE_FLOAT32\"",
+            "DataType=\"NIFTI_TYPE_COMPLEX64\"",
+            "DataArray 0 (NIFTI_INTENT_POINTSET)",
+            &["unsupported DataType", "expected NIFTI_TYPE_FLOAT32"],
+        ),
+        (
+            "Endian=\"LittleEndian\"",
+            "Endian=\"Middle\"",
+            "DataArray 0",
+            &["unknown Endian"],
+        ),
+        (
+            "ArrayIndexingOrder=\"RowMajorOrder\"",
+            "ArrayIndexingOrder=\"Diagonal\"",
+            "DataArray 0",
+            &["unknown ArrayIndexingOrder"],
+        ),
+        (
+            "Dimensionality=\"2\"",
+            "Dimensionality=\"7\"",
+            "DataArray 0",
+            &["expected an integer from 1 to 6"],
+        ),
+        (
+            "Dim1=\"3\"",
+            "Dim1=\"-3\"",
+            "DataArray 0",
+            &["Dim1 is \"-3\"", "non-negative integer"],
+        ),
+        (
+            "NumberOfDataArrays=\"2\"",
+            "NumberOfDataArrays=\"3\"",
+            "GIFTI",
+            &["NumberOfDataArrays is 3 but the file has 2"],
+        ),
     ];
     for (from, to, element, message) in cases {
         let bad = xml.replacen(from, to, 1);
         assert_ne!(bad, xml, "{from}");
-        assert_bad(gifti::parse(bad.as_bytes(), vpath()), vpath(), element, message);
+        assert_bad(
+            gifti::parse(bad.as_bytes(), vpath()),
+            vpath(),
+            element,
+            message,
+        );
     }
     let no_type = xml.replacen(" DataType=\"NIFTI_TYPE_INT32\"", "", 1);
     assert_bad(
@@ -851,9 +928,17 @@ fn bad_not_xml_or_not_gifti() {
         (b"\x89PNG\r\n\x1a\n\x00\x00\xff\xfe", "file", "not UTF-8"),
         (b"hello world", "file", "expected an XML GIFTI file"),
         (b"", "file", "no <GIFTI> element"),
-        (b"<?xml version=\"1.0\"?><svg width=\"3\"/>", "root element", "expected <GIFTI>"),
+        (
+            b"<?xml version=\"1.0\"?><svg width=\"3\"/>",
+            "root element",
+            "expected <GIFTI>",
+        ),
         (b"<!DOCTYPE svg><svg/>", "DOCTYPE", "expected GIFTI"),
-        (b"<GIFTI></GIFTI><GIFTI></GIFTI>", "file", "content after </GIFTI>"),
+        (
+            b"<GIFTI></GIFTI><GIFTI></GIFTI>",
+            "file",
+            "content after </GIFTI>",
+        ),
     ];
     for (bytes, element, message) in cases {
         assert_bad(gifti::parse(bytes, vpath()), vpath(), element, &[message]);
@@ -945,7 +1030,8 @@ fn bad_label_tables() {
         "LabelTable Label 0",
         &["no Key attribute"],
     );
-    let badcolour = r#"<GIFTI><LabelTable><Label Key="2" Red="pink">a</Label></LabelTable></GIFTI>"#;
+    let badcolour =
+        r#"<GIFTI><LabelTable><Label Key="2" Red="pink">a</Label></LabelTable></GIFTI>"#;
     assert_bad(
         gifti::parse(badcolour.as_bytes(), vpath()),
         vpath(),
@@ -975,5 +1061,31 @@ fn writer_refuses_what_xml_cannot_carry() {
     let mut g = rich_small();
     g.arrays[0].dims = vec![5, 3];
     let e = gifti::to_bytes(&g, &gz_opts()).unwrap_err();
-    assert!(e.to_string().contains("DataArray 0 (NIFTI_INTENT_POINTSET)"), "{e}");
+    assert!(
+        e.to_string()
+            .contains("DataArray 0 (NIFTI_INTENT_POINTSET)"),
+        "{e}"
+    );
+}
+
+#[test]
+fn regression_empty_array_with_huge_trailing_dims() {
+    // Dim0 = 0 makes the total 0 even though Dim1 * Dim2 overflows; reading
+    // and re-writing must not overflow anywhere.
+    let xml = r#"<GIFTI NumberOfDataArrays="1"><DataArray Intent="NIFTI_INTENT_NONE" DataType="NIFTI_TYPE_FLOAT32"
+ Dimensionality="3" Dim0="0" Dim1="1099511627776" Dim2="1099511627776" Encoding="ASCII"><Data></Data></DataArray></GIFTI>"#;
+    let g = gifti::parse(xml.as_bytes(), vpath()).unwrap();
+    assert_eq!(g.arrays[0].data.len(), 0);
+    for opts in all_options() {
+        let back = gifti::parse(&gifti::to_bytes(&g, &opts).unwrap(), vpath()).unwrap();
+        assert_eq!(back, g);
+    }
+    // Dimensions whose product overflows with data present are refused.
+    let big = xml.replace("Dim0=\"0\"", "Dim0=\"1099511627776\"");
+    assert_bad(
+        gifti::parse(big.as_bytes(), vpath()),
+        vpath(),
+        "DataArray 0 (NIFTI_INTENT_NONE)",
+        &["overflow"],
+    );
 }

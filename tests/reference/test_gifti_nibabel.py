@@ -79,7 +79,7 @@ def surface_image(rng, encoding, ordering="C"):
     xform = np.eye(4)
     xform[:3, :3] += rng.standard_normal((3, 3)) * 0.1
     xform[:3, 3] = rng.standard_normal(3) * 10
-    cs = GiftiCoordSystem(dataspace=1, xformspace=3, xform=xform)  # scanner -> Talairach
+    cs = GiftiCoordSystem(dataspace=1, xformspace=2, xform=xform)  # scanner -> aligned anatomy
     pts = GiftiDataArray(
         coords,
         intent="NIFTI_INTENT_POINTSET",

@@ -65,8 +65,8 @@ mod writer;
 
 pub use codec::{ByteOrder, IndexOrder, ZLIB_LEVEL};
 pub use model::{
-    array_element, element_count, CoordTransform, Data, DataArray, DataType, Gifti, Intent,
-    Label, LabelTable, MetaData, MAX_DIMS,
+    array_element, element_count, CoordTransform, Data, DataArray, DataType, Gifti, Intent, Label,
+    LabelTable, MetaData, MAX_DIMS,
 };
 pub use reader::parse;
 pub use writer::{to_bytes, write, Encoding, WriteOptions};
@@ -273,10 +273,7 @@ impl Gifti {
                 ))
             }
         };
-        let positions: Vec<[f64; 3]> = coords
-            .chunks_exact(3)
-            .map(|c| [c[0], c[1], c[2]])
-            .collect();
+        let positions: Vec<[f64; 3]> = coords.chunks_exact(3).map(|c| [c[0], c[1], c[2]]).collect();
         if let Some((i, p)) = positions
             .iter()
             .enumerate()

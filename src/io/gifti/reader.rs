@@ -14,7 +14,10 @@
 //! expected. Follows "GIFTI Surface Data Format Version 1.0" (NIfTI Data
 //! Format Working Group, 2011); lenient where nibabel is (empty
 //! `ExternalFileOffset`, missing `Endian` taken as little-endian, label
-//! `Index` read as `Key`).
+//! `Index` read as `Key`, the `GIFTI_ENCODING_*` / `GIFTI_ENDIAN_*` spellings
+//! of older writers). ASCII data in a `ColumnMajorOrder` array is read as
+//! the standard says, values in the declared index order (nibabel 5 writes
+//! ASCII text row by row whatever its ordering option).
 
 use super::codec::{self, ByteOrder, IndexOrder};
 use super::model::{
@@ -97,7 +100,9 @@ impl<'a> Parser<'a, '_> {
 
     /// 1-based line of byte offset `pos`.
     fn line_at(&self, pos: u64) -> usize {
-        let pos = usize::try_from(pos).unwrap_or(usize::MAX).min(self.text.len());
+        let pos = usize::try_from(pos)
+            .unwrap_or(usize::MAX)
+            .min(self.text.len());
         self.text
             .as_bytes()
             .get(..pos)
@@ -163,7 +168,7 @@ impl<'a> Parser<'a, '_> {
 
     /// Accept `<!DOCTYPE GIFTI SYSTEM "...">` / `PUBLIC`; refuse any internal subset.
     fn check_doctype(&self, content: &str) -> Result<()> {
-        if content.contains("<!ENTITY") || content.contains("ENTITY") {
+        if content.contains("<!ENTITY") {
             return Err(self.bad(
                 "DOCTYPE",
                 "the document declares entities; refused (entities are never expanded). Expected at most the plain <!DOCTYPE GIFTI SYSTEM \"...gifti.dtd\"> line",
@@ -270,12 +275,7 @@ impl<'a> Parser<'a, '_> {
                     ))
                 }
                 Event::Eof => return Err(self.truncated(element)),
-                _ => {
-                    return Err(self.bad(
-                        element.to_string(),
-                        "unexpected markup; expected text",
-                    ))
-                }
+                _ => return Err(self.bad(element.to_string(), "unexpected markup; expected text")),
             }
         }
     }
@@ -332,10 +332,8 @@ impl<'a> Parser<'a, '_> {
                     "MetaData" => g.meta = self.metadata("GIFTI MetaData")?,
                     "LabelTable" => {
                         if saw_table {
-                            return Err(self.bad(
-                                "LabelTable",
-                                "a second <LabelTable>; expected at most one",
-                            ));
+                            return Err(self
+                                .bad("LabelTable", "a second <LabelTable>; expected at most one"));
                         }
                         saw_table = true;
                         g.label_table = self.label_table()?;
@@ -477,10 +475,7 @@ impl<'a> Parser<'a, '_> {
                 Event::Comment(_) | Event::PI(_) => {}
                 Event::Eof => return Err(self.truncated("LabelTable")),
                 _ => {
-                    return Err(self.bad(
-                        "LabelTable",
-                        "unexpected text; expected <Label> elements",
-                    ))
+                    return Err(self.bad("LabelTable", "unexpected text; expected <Label> elements"))
                 }
             }
         }
@@ -527,7 +522,9 @@ impl<'a> Parser<'a, '_> {
             .ok_or_else(|| {
                 self.bad(
                     el.clone(),
-                    format!("Dimensionality is {nd_text:?}; expected an integer from 1 to {MAX_DIMS}"),
+                    format!(
+                        "Dimensionality is {nd_text:?}; expected an integer from 1 to {MAX_DIMS}"
+                    ),
                 )
             })?;
         let mut dims = Vec::with_capacity(nd);
@@ -717,13 +714,19 @@ impl<'a> Parser<'a, '_> {
         let n = element_count(&h.dims).ok_or_else(|| {
             self.bad(
                 el.to_string(),
-                format!("dimensions {:?} overflow; expected a size that fits in memory", h.dims),
+                format!(
+                    "dimensions {:?} overflow; expected a size that fits in memory",
+                    h.dims
+                ),
             )
         })?;
         let nbytes = n.checked_mul(h.dtype.size()).ok_or_else(|| {
             self.bad(
                 el.to_string(),
-                format!("dimensions {:?} overflow; expected a size that fits in memory", h.dims),
+                format!(
+                    "dimensions {:?} overflow; expected a size that fits in memory",
+                    h.dims
+                ),
             )
         })?;
         let declared = || {

@@ -63,10 +63,9 @@ pub fn write(path: &Path, g: &Gifti, opts: &WriteOptions) -> Result<()> {
 
 /// Check that `s` can be carried by XML 1.0 text; `what` names it in the message.
 fn check_text(s: &str, what: &str) -> Result<()> {
-    if let Some(c) = s
-        .chars()
-        .find(|&c| (c < ' ' && !matches!(c, '\t' | '\n' | '\r')) || c == '\u{FFFE}' || c == '\u{FFFF}')
-    {
+    if let Some(c) = s.chars().find(|&c| {
+        (c < ' ' && !matches!(c, '\t' | '\n' | '\r')) || c == '\u{FFFE}' || c == '\u{FFFF}'
+    }) {
         return Err(Error::Invalid(format!(
             "{what} contains the control character U+{:04X}, which XML 1.0 cannot carry",
             c as u32
