@@ -1089,3 +1089,34 @@ fn regression_empty_array_with_huge_trailing_dims() {
         &["overflow"],
     );
 }
+
+/// Files for tests/reference/test_gifti_nibabel.py: the rich file in every
+/// encoding x byte order x index order, written to the folder named by
+/// HOROSPHERE_ARTIFACTS (or a scratch folder, removed afterwards). Each is
+/// read back here; nibabel then checks that it reads them all alike.
+#[test]
+fn artifacts_for_reference_checks() {
+    let (dir, keep) = match std::env::var_os("HOROSPHERE_ARTIFACTS") {
+        Some(d) => (PathBuf::from(d).join("gifti"), true),
+        None => (scratch("artifacts"), false),
+    };
+    std::fs::create_dir_all(&dir).unwrap();
+    let g = rich();
+    let mut names = Vec::new();
+    for opts in all_options() {
+        let name = format!(
+            "rich_{}_{}_{}.gii",
+            opts.encoding.as_str(),
+            opts.byte_order.as_str(),
+            opts.index_order.as_str()
+        );
+        let p = dir.join(&name);
+        gifti::write(&p, &g, &opts).unwrap();
+        assert_eq!(gifti::read(&p).unwrap(), g, "{name}");
+        names.push(name);
+    }
+    assert_eq!(names.len(), 12);
+    if !keep {
+        std::fs::remove_dir_all(&dir).unwrap();
+    }
+}
