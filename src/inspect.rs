@@ -16,8 +16,8 @@
 //! - boundary loops (edges with one face), with their edge count and length;
 //! - non-manifold edges (more than two faces) and non-manifold vertices
 //!   (the faces around the vertex, joined across the edges they share, form
-//!   more than one fan: a "bow-tie"; found with a union-find over face
-//!   corners, O(F));
+//!   more than one fan: a "bow-tie"; found vertex by vertex with a small
+//!   union-find over the corners at the vertex, O(F) for bounded valence);
 //! - degenerate faces: a repeated vertex index, or `|(b - a) x (c - a)| <=
 //!   tol * L^2` with `L` the longest side, i.e. the height over the longest
 //!   side is at most `tol * L` (default `tol = 1e-10`, a relative tolerance
@@ -46,7 +46,7 @@
 //! how many handles each component has.
 
 use crate::error::Result;
-use crate::mesh::topology::{face_components, EdgeTable, UnionFind};
+use crate::mesh::topology::{face_components, EdgeTable};
 use crate::mesh::{cross, dot, norm, sub, TriMesh, Vec3};
 use serde::{Deserialize, Serialize};
 
@@ -295,10 +295,93 @@ impl ParityUnionFind {
     }
 }
 
-/// Corner of face `f` at the start (`end = false`) or end of side `slot`.
+/// Root of `x` in a small local forest (path halving).
 #[inline]
-fn corner(f: u32, slot: u8, end: bool) -> u32 {
-    3 * f + if end { (slot as u32 + 1) % 3 } else { slot as u32 }
+fn local_find(parent: &mut [u32], mut x: u32) -> u32 {
+    while parent[x as usize] != x {
+        let p = parent[x as usize];
+        parent[x as usize] = parent[p as usize];
+        x = parent[x as usize];
+    }
+    x
+}
+
+/// Number of fans at each vertex: the faces around the vertex, joined when
+/// they share an edge at it (of any valence) or are the same face, fall into
+/// this many groups; more than one is a bow-tie. Vertex by vertex the corners
+/// are gathered (a counting sort, O(F)) and joined by a small union-find:
+/// pairwise for up to 32 corners, by sorting the neighbour keys above that.
+fn vertex_fans(mesh: &TriMesh) -> Vec<u32> {
+    let nv = mesh.n_vertices();
+    let mut start = vec![0u32; nv + 1];
+    for t in &mesh.faces {
+        for &v in t {
+            start[v as usize + 1] += 1;
+        }
+    }
+    for v in 0..nv {
+        start[v + 1] += start[v];
+    }
+    // Per corner: next vertex, previous vertex, face.
+    let mut fill = start.clone();
+    let mut corner = vec![[0u32; 3]; 3 * mesh.n_faces()];
+    for (f, t) in mesh.faces.iter().enumerate() {
+        for k in 0..3 {
+            let slot = &mut fill[t[k] as usize];
+            corner[*slot as usize] = [t[(k + 1) % 3], t[(k + 2) % 3], f as u32];
+            *slot += 1;
+        }
+    }
+    let mut fans = vec![0u32; nv];
+    let mut parent: Vec<u32> = Vec::new();
+    let mut keys: Vec<(u64, u32)> = Vec::new();
+    for v in 0..nv {
+        let cs = &corner[start[v] as usize..start[v + 1] as usize];
+        let k = cs.len();
+        parent.clear();
+        parent.extend(0..k as u32);
+        let mut groups = k as u32;
+        let mut join = |parent: &mut Vec<u32>, i: u32, j: u32| {
+            let (ri, rj) = (local_find(parent, i), local_find(parent, j));
+            if ri != rj {
+                parent[ri as usize] = rj;
+                groups -= 1;
+            }
+        };
+        let vv = v as u32;
+        if k <= 32 {
+            for i in 0..k {
+                let a = cs[i];
+                for (j, b) in cs.iter().enumerate().skip(i + 1) {
+                    let share = a[2] == b[2]
+                        || (a[0] != vv && (a[0] == b[0] || a[0] == b[1]))
+                        || (a[1] != vv && (a[1] == b[0] || a[1] == b[1]));
+                    if share {
+                        join(&mut parent, i as u32, j as u32);
+                    }
+                }
+            }
+        } else {
+            keys.clear();
+            for (i, c) in cs.iter().enumerate() {
+                let i = i as u32;
+                keys.push(((1u64 << 32) | c[2] as u64, i));
+                for &u in &c[..2] {
+                    if u != vv {
+                        keys.push((u as u64, i));
+                    }
+                }
+            }
+            keys.sort_unstable();
+            for w in keys.windows(2) {
+                if w[0].0 == w[1].0 {
+                    join(&mut parent, w[0].1, w[1].1);
+                }
+            }
+        }
+        fans[v] = groups;
+    }
+    fans
 }
 
 /// Directed boundary walks: `(vertices, edges as (a, b), closed)`.
@@ -370,21 +453,28 @@ fn exact_key(p: &Vec3) -> [u64; 3] {
 /// the pair `[j, i]` with the lowest such `j`, in increasing `i`.
 fn duplicate_pairs(positions: &[Vec3], tol: f64) -> Vec<[u32; 2]> {
     let n = positions.len();
-    let mut order: Vec<u32> = (0..n as u32).collect();
     let mut pairs = Vec::new();
     if tol <= 0.0 || !tol.is_finite() {
-        let keys: Vec<[u64; 3]> = positions.iter().map(exact_key).collect();
-        order.sort_unstable_by_key(|&i| (keys[i as usize], i));
+        let mut keyed: Vec<([u64; 3], u32)> = positions
+            .iter()
+            .enumerate()
+            .map(|(i, p)| (exact_key(p), i as u32))
+            .collect();
+        keyed.sort_unstable();
         let mut k = 0;
         while k < n {
             let mut m = k + 1;
-            while m < n && keys[order[m] as usize] == keys[order[k] as usize] {
-                pairs.push([order[k], order[m]]);
+            while m < n && keyed[m].0 == keyed[k].0 {
+                pairs.push([keyed[k].1, keyed[m].1]);
                 m += 1;
             }
             k = m;
         }
     } else {
+        // Grid of cell size `tol`: a partner lies in one of the 27 cells
+        // around a vertex's cell. Cells are sorted by (x, y, z), so for each
+        // (dx, dy) the three cells z - 1..=z + 1 are one contiguous run: nine
+        // binary searches per occupied cell.
         let cell_of = |p: &Vec3| -> [i64; 3] {
             [
                 (p[0] / tol).floor() as i64,
@@ -392,34 +482,40 @@ fn duplicate_pairs(positions: &[Vec3], tol: f64) -> Vec<[u32; 2]> {
                 (p[2] / tol).floor() as i64,
             ]
         };
-        let cells: Vec<[i64; 3]> = positions.iter().map(cell_of).collect();
-        order.sort_unstable_by_key(|&i| (cells[i as usize], i));
+        let mut sorted: Vec<([i64; 3], u32)> = positions
+            .iter()
+            .enumerate()
+            .map(|(i, p)| (cell_of(p), i as u32))
+            .collect();
+        sorted.sort_unstable();
         let tol2 = tol * tol;
-        for i in 0..n {
-            let c = cells[i];
-            let mut best: Option<u32> = None;
+        let mut best = vec![u32::MAX; n];
+        let mut g = 0;
+        while g < n {
+            let c = sorted[g].0;
+            let g_end = g + sorted[g..].partition_point(|x| x.0 == c);
             for dx in -1i64..=1 {
                 for dy in -1i64..=1 {
-                    for dz in -1i64..=1 {
-                        let q = [
-                            c[0].saturating_add(dx),
-                            c[1].saturating_add(dy),
-                            c[2].saturating_add(dz),
-                        ];
-                        let lo = order.partition_point(|&j| cells[j as usize] < q);
-                        for &j in order[lo..].iter().take_while(|&&j| cells[j as usize] == q) {
-                            if (j as usize) >= i {
-                                break; // sorted by index within a cell
-                            }
-                            let d = sub(positions[i], positions[j as usize]);
-                            if dot(d, d) <= tol2 && best.is_none_or(|b| j < b) {
-                                best = Some(j);
+                    let (x, y) = (c[0].saturating_add(dx), c[1].saturating_add(dy));
+                    let lo_key = [x, y, c[2].saturating_sub(1)];
+                    let hi_key = [x, y, c[2].saturating_add(1)];
+                    let lo = sorted.partition_point(|e| e.0 < lo_key);
+                    for &(_, j) in sorted[lo..].iter().take_while(|e| e.0 <= hi_key) {
+                        for &(_, i) in &sorted[g..g_end] {
+                            if j < i && j < best[i as usize] {
+                                let d = sub(positions[i as usize], positions[j as usize]);
+                                if dot(d, d) <= tol2 {
+                                    best[i as usize] = j;
+                                }
                             }
                         }
                     }
                 }
             }
-            if let Some(j) = best {
+            g = g_end;
+        }
+        for (i, &j) in best.iter().enumerate() {
+            if j != u32::MAX {
                 pairs.push([j, i as u32]);
             }
         }
@@ -434,9 +530,19 @@ pub fn inspect(mesh: &TriMesh, opts: &InspectOptions) -> Result<Inspection> {
     mesh.validate()?;
     let nv = mesh.n_vertices();
     let nf = mesh.n_faces();
-    let table = EdgeTable::new(mesh);
+    // Four independent passes, two by two on the thread pool; each is
+    // sequential and deterministic, so the report does not depend on the
+    // number of threads.
+    let ((table, (face_comp, ncomp)), (fans, duplicates)) = rayon::join(
+        || (EdgeTable::new(mesh), face_components(mesh)),
+        || {
+            (
+                vertex_fans(mesh),
+                duplicate_pairs(&mesh.positions, opts.duplicate_tolerance_mm),
+            )
+        },
+    );
     let ne = table.len();
-    let (face_comp, ncomp) = face_components(mesh);
 
     // Per-vertex component; unreferenced vertices keep u32::MAX.
     let mut vertex_comp = vec![u32::MAX; nv];
@@ -447,9 +553,7 @@ pub fn inspect(mesh: &TriMesh, opts: &InspectOptions) -> Result<Inspection> {
     }
 
     // Edges: classification, orientability and corner fans.
-    let mut parity = ParityUnionFind::new(nf);
     let mut comp_orientable = vec![true; ncomp];
-    let mut corners = UnionFind::new(3 * nf);
     let mut non_manifold_edges = Vec::new();
     let mut inconsistent_edges = Vec::new();
     let mut comp_edges = vec![0usize; ncomp];
@@ -472,50 +576,33 @@ pub fn inspect(mesh: &TriMesh, opts: &InspectOptions) -> Result<Inspection> {
                     inconsistent_edges.push(table.edges[e]);
                     comp_inconsistent[c] = true;
                 }
-                if !parity.union(inc[0].face, inc[1].face, u8::from(same)) {
-                    comp_orientable[c] = false;
-                }
             }
             _ => {
                 non_manifold_edges.push(table.edges[e]);
                 comp_nm[c] = true;
             }
         }
-        // Join the corners at both ends across this edge, whatever its valence.
-        let first = inc[0];
-        let fa = forward(&first);
-        for other in &inc[1..] {
-            let fo = forward(other);
-            // Corner at `a` is the side's start when it runs a -> b.
-            corners.union(
-                corner(first.face, first.slot, !fa),
-                corner(other.face, other.slot, !fo),
-            );
-            corners.union(
-                corner(first.face, first.slot, fa),
-                corner(other.face, other.slot, fo),
-            );
-        }
     }
-    // A face with a repeated index touches its vertex once.
-    for (f, t) in mesh.faces.iter().enumerate() {
-        let f = f as u32;
-        for (i, j) in [(0, 1), (1, 2), (0, 2)] {
-            if t[i] == t[j] {
-                corners.union(3 * f + i as u32, 3 * f + j as u32);
+    // Orientability: only in question where some edge is inconsistent (a
+    // consistent orientation is its own proof). Faces across manifold edges
+    // must agree up to the parity of a flip; a contradiction means the
+    // component is not orientable.
+    if !inconsistent_edges.is_empty() {
+        let mut parity = ParityUnionFind::new(nf);
+        for e in 0..ne {
+            let inc = table.faces_of(e);
+            if let [i0, i1] = inc {
+                let a = table.edges[e][0];
+                let f0 = mesh.faces[i0.face as usize][i0.slot as usize] == a;
+                let f1 = mesh.faces[i1.face as usize][i1.slot as usize] == a;
+                if !parity.union(i0.face, i1.face, u8::from(f0 == f1)) {
+                    comp_orientable[face_comp[i0.face as usize] as usize] = false;
+                }
             }
         }
     }
-    let mut fans = vec![0u32; nv];
-    for c in 0..3 * nf as u32 {
-        if corners.find(c) == c {
-            let v = mesh.faces[(c / 3) as usize][(c % 3) as usize];
-            fans[v as usize] += 1;
-        }
-    }
-    let non_manifold_vertices: Vec<u32> = (0..nv as u32)
-        .filter(|&v| fans[v as usize] > 1)
-        .collect();
+    let non_manifold_vertices: Vec<u32> =
+        (0..nv as u32).filter(|&v| fans[v as usize] > 1).collect();
     for &v in &non_manifold_vertices {
         comp_nm[vertex_comp[v as usize] as usize] = true;
     }
@@ -538,7 +625,12 @@ pub fn inspect(mesh: &TriMesh, opts: &InspectOptions) -> Result<Inspection> {
                 edges: w.sides.len(),
                 length_mm,
                 closed: w.closed,
-                vertices: w.sides.iter().take(LOOP_VERTICES_LISTED).map(|s| s.0).collect(),
+                vertices: w
+                    .sides
+                    .iter()
+                    .take(LOOP_VERTICES_LISTED)
+                    .map(|s| s.0)
+                    .collect(),
             }
         })
         .collect();
@@ -599,16 +691,16 @@ pub fn inspect(mesh: &TriMesh, opts: &InspectOptions) -> Result<Inspection> {
                 .then_some((twice_g / 2) as u32);
             let closed = comp_loops[c] == 0;
             let vol = comp_volume[c];
-            let orientation = if closed && manifold && !comp_inconsistent[c] && vol.abs() > volume_floor
-            {
-                if vol > 0.0 {
-                    Orientation::Outward
+            let orientation =
+                if closed && manifold && !comp_inconsistent[c] && vol.abs() > volume_floor {
+                    if vol > 0.0 {
+                        Orientation::Outward
+                    } else {
+                        Orientation::Inward
+                    }
                 } else {
-                    Orientation::Inward
-                }
-            } else {
-                Orientation::Undetermined
-            };
+                    Orientation::Undetermined
+                };
             ComponentInfo {
                 index: c,
                 vertices: comp_vertices[c],
@@ -639,8 +731,6 @@ pub fn inspect(mesh: &TriMesh, opts: &InspectOptions) -> Result<Inspection> {
     let all_closed = components.iter().all(|c| c.closed);
     let enclosed_volume_mm3 = all_closed.then(|| comp_volume.iter().sum());
     let area_mm2 = comp_area.iter().sum();
-
-    let duplicates = duplicate_pairs(&mesh.positions, opts.duplicate_tolerance_mm);
 
     let mut report = Inspection {
         schema_version: SCHEMA_VERSION,
@@ -815,7 +905,10 @@ fn fmt_pairs(p: &[[u32; 2]]) -> String {
 }
 
 fn fmt_list(p: &[u32]) -> String {
-    p.iter().map(|v| v.to_string()).collect::<Vec<_>>().join(" ")
+    p.iter()
+        .map(|v| v.to_string())
+        .collect::<Vec<_>>()
+        .join(" ")
 }
 
 fn orientation_word(o: Orientation) -> &'static str {
@@ -851,14 +944,22 @@ pub fn render_text(r: &Inspection, title: &str) -> String {
             c.euler_characteristic,
             genus,
             c.boundary_loops,
-            if c.manifold { "manifold" } else { "NON-MANIFOLD" },
+            if c.manifold {
+                "manifold"
+            } else {
+                "NON-MANIFOLD"
+            },
             if c.orientable { "" } else { ", non-orientable" },
             orientation_word(c.orientation),
             c.area_mm2
         );
     }
     if r.components.count > r.components.listed.len() {
-        let _ = writeln!(s, "  ... {} more", r.components.count - r.components.listed.len());
+        let _ = writeln!(
+            s,
+            "  ... {} more",
+            r.components.count - r.components.listed.len()
+        );
     }
     if r.boundary.loops == 0 {
         let _ = writeln!(s, "boundary     none (closed)");
@@ -877,7 +978,11 @@ pub fn render_text(r: &Inspection, title: &str) -> String {
                 l.length_mm,
                 if l.closed { "" } else { " (not closed)" },
                 fmt_list(&l.vertices),
-                if l.edges > l.vertices.len() { " ..." } else { "" }
+                if l.edges > l.vertices.len() {
+                    " ..."
+                } else {
+                    ""
+                }
             );
         }
     }
@@ -890,17 +995,47 @@ pub fn render_text(r: &Inspection, title: &str) -> String {
         }
     };
     let x = &r.non_manifold_edges;
-    check("non-manifold edges", x.count, fmt_pairs(&x.listed), x.listed.len());
+    check(
+        "non-manifold edges",
+        x.count,
+        fmt_pairs(&x.listed),
+        x.listed.len(),
+    );
     let x = &r.non_manifold_vertices;
-    check("non-manifold vertices", x.count, fmt_list(&x.listed), x.listed.len());
+    check(
+        "non-manifold vertices",
+        x.count,
+        fmt_list(&x.listed),
+        x.listed.len(),
+    );
     let x = &r.inconsistent_edges;
-    check("flipped edges", x.count, fmt_pairs(&x.listed), x.listed.len());
+    check(
+        "flipped edges",
+        x.count,
+        fmt_pairs(&x.listed),
+        x.listed.len(),
+    );
     let x = &r.degenerate_faces;
-    check("degenerate faces", x.count, fmt_list(&x.listed), x.listed.len());
+    check(
+        "degenerate faces",
+        x.count,
+        fmt_list(&x.listed),
+        x.listed.len(),
+    );
     let x = &r.duplicate_vertices;
-    check("duplicate vertices", x.count, fmt_pairs(&x.listed), x.listed.len());
+    check(
+        "duplicate vertices",
+        x.count,
+        fmt_pairs(&x.listed),
+        x.listed.len(),
+    );
     let x = &r.unreferenced_vertices;
-    check("unused vertices", x.count, fmt_list(&x.listed), x.listed.len());
+    check(
+        "unused vertices",
+        x.count,
+        fmt_list(&x.listed),
+        x.listed.len(),
+    );
     let _ = writeln!(s, "orientation  {}", orientation_word(r.orientation));
     let _ = writeln!(s, "area         {:.3} mm2", r.area_mm2);
     match r.enclosed_volume_mm3 {
@@ -926,4 +1061,91 @@ pub fn render_text(r: &Inspection, title: &str) -> String {
         }
     }
     s
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Closed fan of `n` triangles around vertex 0 (a cone apex), vertices
+    /// numbered from `first`.
+    fn fan(n: u32, first: u32, faces: &mut Vec<[u32; 3]>) {
+        for j in 0..n {
+            faces.push([0, first + j, first + (j + 1) % n]);
+        }
+    }
+
+    #[test]
+    fn fans_small_and_large_valence() {
+        // Two closed fans meeting at vertex 0: a bow-tie, for valence 2 x 6
+        // (pairwise path) and 2 x 20 (sorting path).
+        for n in [6u32, 20] {
+            let mut faces = Vec::new();
+            fan(n, 1, &mut faces);
+            fan(n, 1 + n, &mut faces);
+            let positions = vec![[0.0; 3]; 1 + 2 * n as usize];
+            let fans = vertex_fans(&TriMesh { positions, faces });
+            assert_eq!(fans[0], 2, "n = {n}");
+            assert!(fans[1..].iter().all(|&k| k == 1));
+        }
+        // One closed fan of 40: a single fan through the sorting path.
+        let mut faces = Vec::new();
+        fan(40, 1, &mut faces);
+        let fans = vertex_fans(&TriMesh {
+            positions: vec![[0.0; 3]; 41],
+            faces,
+        });
+        assert_eq!(fans[0], 1);
+        // A face with all three corners at one vertex is one fan.
+        let fans = vertex_fans(&TriMesh {
+            positions: vec![[0.0; 3]; 1],
+            faces: vec![[0, 0, 0]],
+        });
+        assert_eq!(fans[0], 1);
+    }
+
+    #[test]
+    fn grid_duplicate_search_equals_brute_force() {
+        // Seeded point cloud (a 64-bit LCG, Knuth's MMIX constants) on a
+        // coarse lattice so that many points fall within the tolerance.
+        let mut state = 0x2545_f491_4f6c_dd1du64;
+        let mut next = || {
+            state = state
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            ((state >> 33) % 40) as f64 * 0.05 - 1.0
+        };
+        let pts: Vec<Vec3> = (0..600).map(|_| [next(), next(), next()]).collect();
+        for tol in [0.0, 0.05, 0.07, 0.2] {
+            let mut brute = Vec::new();
+            for i in 0..pts.len() {
+                let d2 = |j: usize| {
+                    let d = sub(pts[i], pts[j]);
+                    dot(d, d)
+                };
+                if let Some(j) = (0..i).find(|&j| {
+                    if tol == 0.0 {
+                        pts[i] == pts[j]
+                    } else {
+                        d2(j) <= tol * tol
+                    }
+                }) {
+                    brute.push([j as u32, i as u32]);
+                }
+            }
+            assert!(!brute.is_empty());
+            assert_eq!(duplicate_pairs(&pts, tol), brute, "tol {tol}");
+        }
+    }
+
+    #[test]
+    fn parity_union_find_detects_odd_cycles() {
+        let mut p = ParityUnionFind::new(4);
+        assert!(p.union(0, 1, 1));
+        assert!(p.union(1, 2, 1));
+        assert!(p.union(2, 3, 0));
+        assert_eq!(p.find(3).1 ^ p.find(0).1, 0);
+        assert!(p.union(3, 0, 0));
+        assert!(!p.union(0, 2, 1), "0 and 2 have even parity");
+    }
 }

@@ -257,16 +257,31 @@ mod tests {
             MeshFormat::from_extension(Path::new("a/b.surf.gii")),
             Some(MeshFormat::Gifti)
         );
-        assert_eq!(MeshFormat::from_extension(Path::new("x.OBJ")), Some(MeshFormat::Obj));
-        assert_eq!(MeshFormat::from_extension(Path::new("x.ply")), Some(MeshFormat::Ply));
-        assert_eq!(MeshFormat::from_extension(Path::new("x.off")), Some(MeshFormat::Off));
+        assert_eq!(
+            MeshFormat::from_extension(Path::new("x.OBJ")),
+            Some(MeshFormat::Obj)
+        );
+        assert_eq!(
+            MeshFormat::from_extension(Path::new("x.ply")),
+            Some(MeshFormat::Ply)
+        );
+        assert_eq!(
+            MeshFormat::from_extension(Path::new("x.off")),
+            Some(MeshFormat::Off)
+        );
         assert_eq!(MeshFormat::from_extension(Path::new("x.stl")), None);
         assert_eq!(
             MeshFormat::from_magic(b"\xEF\xBB\xBF<?xml version"),
             Some(MeshFormat::Gifti)
         );
-        assert_eq!(MeshFormat::from_magic(b"  <GIFTI "), Some(MeshFormat::Gifti));
-        assert_eq!(MeshFormat::from_magic(b"ply\r\nformat"), Some(MeshFormat::Ply));
+        assert_eq!(
+            MeshFormat::from_magic(b"  <GIFTI "),
+            Some(MeshFormat::Gifti)
+        );
+        assert_eq!(
+            MeshFormat::from_magic(b"ply\r\nformat"),
+            Some(MeshFormat::Ply)
+        );
         assert_eq!(MeshFormat::from_magic(b"OFF\n3 1 0"), Some(MeshFormat::Off));
         assert_eq!(MeshFormat::from_magic(b"COFF 3 1 0"), Some(MeshFormat::Off));
         assert_eq!(MeshFormat::from_magic(b"v 0 0 0"), None);
@@ -302,12 +317,23 @@ mod tests {
     #[test]
     fn lines_and_fans() {
         let l: Vec<_> = Lines::new(b"a\r\nb\n\nc").collect();
-        assert_eq!(l, vec![(1, &b"a"[..]), (2, &b"b"[..]), (3, &b""[..]), (4, &b"c"[..])]);
+        assert_eq!(
+            l,
+            vec![
+                (1, &b"a"[..]),
+                (2, &b"b"[..]),
+                (3, &b""[..]),
+                (4, &b"c"[..])
+            ]
+        );
         let mut f = Vec::new();
         push_fan(&mut f, &[4, 5, 6, 7, 8]);
         assert_eq!(f, vec![[4, 5, 6], [4, 6, 7], [4, 7, 8]]);
-        for x in [0.1, -1e-300, 1e300, 123.456789012345678, f64::MIN_POSITIVE] {
-            assert_eq!(fmt_coordinate(x).parse::<f64>().unwrap().to_bits(), x.to_bits());
+        for x in [0.1, -1e-300, 1e300, 123.456_789_012_345_68, f64::MIN_POSITIVE] {
+            assert_eq!(
+                fmt_coordinate(x).parse::<f64>().unwrap().to_bits(),
+                x.to_bits()
+            );
         }
     }
 }
