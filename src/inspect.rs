@@ -920,147 +920,151 @@ fn orientation_word(o: Orientation) -> &'static str {
     }
 }
 
-/// A compact text summary of `r`, headed by `title` (e.g. the file name).
+/// A compact text summary of `r`, headed by `title` (e.g. the file name):
+/// one finding per line, label in a 22-character column.
 pub fn render_text(r: &Inspection, title: &str) -> String {
-    use std::fmt::Write;
-    let mut s = String::new();
-    let _ = writeln!(s, "surface      {title}");
-    let _ = writeln!(
-        s,
-        "size         {} vertices, {} edges, {} faces; V-E+F = {}",
-        r.vertices, r.edges, r.faces, r.euler_characteristic
+    let mut lines: Vec<(String, String)> = Vec::new();
+    let mut row = |label: &str, value: String| lines.push((label.to_string(), value));
+    row("surface", title.to_string());
+    row(
+        "size",
+        format!(
+            "{} vertices, {} edges, {} faces; V - E + F = {}",
+            r.vertices, r.edges, r.faces, r.euler_characteristic
+        ),
     );
-    let _ = writeln!(s, "pieces       {}", r.components.count);
+    row("pieces", r.components.count.to_string());
     for c in &r.components.listed {
         let genus = c
             .genus
             .map_or_else(|| "genus n/a".to_string(), |g| format!("genus {g}"));
-        let _ = writeln!(
-            s,
-            "  [{}]        {} V, {} F, chi {}, {}, {} loop(s), {}{}, {}, area {:.2} mm2",
-            c.index,
-            c.vertices,
-            c.faces,
-            c.euler_characteristic,
-            genus,
-            c.boundary_loops,
-            if c.manifold {
-                "manifold"
-            } else {
-                "NON-MANIFOLD"
-            },
-            if c.orientable { "" } else { ", non-orientable" },
-            orientation_word(c.orientation),
-            c.area_mm2
+        let mut traits = vec![if c.closed {
+            "closed".to_string()
+        } else {
+            format!("{} loop(s)", c.boundary_loops)
+        }];
+        if !c.manifold {
+            traits.push("non-manifold".into());
+        }
+        if !c.orientable {
+            traits.push("non-orientable".into());
+        }
+        traits.push(orientation_word(c.orientation).into());
+        row(
+            &format!("  piece {}", c.index),
+            format!(
+                "{} V, {} F, chi {}, {}, {}, {:.2} mm2",
+                c.vertices,
+                c.faces,
+                c.euler_characteristic,
+                genus,
+                traits.join(", "),
+                c.area_mm2
+            ),
         );
     }
     if r.components.count > r.components.listed.len() {
-        let _ = writeln!(
-            s,
-            "  ... {} more",
-            r.components.count - r.components.listed.len()
+        row(
+            "  ...",
+            format!("{} more", r.components.count - r.components.listed.len()),
         );
     }
     if r.boundary.loops == 0 {
-        let _ = writeln!(s, "boundary     none (closed)");
+        row("boundary", "none".into());
     } else {
-        let _ = writeln!(
-            s,
-            "boundary     {} loop(s), {} edges, {:.3} mm",
-            r.boundary.loops, r.boundary.edges, r.boundary.length_mm
+        row(
+            "boundary",
+            format!(
+                "{} loop(s), {} edges, {:.3} mm",
+                r.boundary.loops, r.boundary.edges, r.boundary.length_mm
+            ),
         );
         for l in &r.boundary.listed {
-            let _ = writeln!(
-                s,
-                "  piece {}    {} edges, {:.3} mm{}, from vertices {}{}",
-                l.component,
-                l.edges,
-                l.length_mm,
-                if l.closed { "" } else { " (not closed)" },
-                fmt_list(&l.vertices),
-                if l.edges > l.vertices.len() {
-                    " ..."
-                } else {
-                    ""
-                }
+            row(
+                &format!("  on piece {}", l.component),
+                format!(
+                    "{} edges, {:.3} mm{}, through {}{}",
+                    l.edges,
+                    l.length_mm,
+                    if l.closed { "" } else { " (not closed)" },
+                    fmt_list(&l.vertices),
+                    if l.edges > l.vertices.len() {
+                        " ..."
+                    } else {
+                        ""
+                    }
+                ),
             );
         }
     }
-    let more = |count: usize, listed: usize| if count > listed { " ..." } else { "" };
-    let mut check = |label: &str, count: usize, listed: String, n_listed: usize| {
+    let finding = |count: usize, n_listed: usize, listed: String| {
         if count == 0 {
-            let _ = writeln!(s, "{label:<23}0");
+            "0".to_string()
         } else {
-            let _ = writeln!(s, "{label:<23}{count}: {listed}{}", more(count, n_listed));
+            let more = if count > n_listed { " ..." } else { "" };
+            format!("{count}: {listed}{more}")
         }
     };
     let x = &r.non_manifold_edges;
-    check(
+    row(
         "non-manifold edges",
-        x.count,
-        fmt_pairs(&x.listed),
-        x.listed.len(),
+        finding(x.count, x.listed.len(), fmt_pairs(&x.listed)),
     );
     let x = &r.non_manifold_vertices;
-    check(
+    row(
         "non-manifold vertices",
-        x.count,
-        fmt_list(&x.listed),
-        x.listed.len(),
+        finding(x.count, x.listed.len(), fmt_list(&x.listed)),
     );
     let x = &r.inconsistent_edges;
-    check(
+    row(
         "flipped edges",
-        x.count,
-        fmt_pairs(&x.listed),
-        x.listed.len(),
+        finding(x.count, x.listed.len(), fmt_pairs(&x.listed)),
     );
     let x = &r.degenerate_faces;
-    check(
+    row(
         "degenerate faces",
-        x.count,
-        fmt_list(&x.listed),
-        x.listed.len(),
+        finding(x.count, x.listed.len(), fmt_list(&x.listed)),
     );
     let x = &r.duplicate_vertices;
-    check(
+    row(
         "duplicate vertices",
-        x.count,
-        fmt_pairs(&x.listed),
-        x.listed.len(),
+        finding(x.count, x.listed.len(), fmt_pairs(&x.listed)),
     );
     let x = &r.unreferenced_vertices;
-    check(
+    row(
         "unused vertices",
-        x.count,
-        fmt_list(&x.listed),
-        x.listed.len(),
+        finding(x.count, x.listed.len(), fmt_list(&x.listed)),
     );
-    let _ = writeln!(s, "orientation  {}", orientation_word(r.orientation));
-    let _ = writeln!(s, "area         {:.3} mm2", r.area_mm2);
-    match r.enclosed_volume_mm3 {
-        Some(v) => {
-            let _ = writeln!(s, "volume       {v:.3} mm3");
-        }
-        None => {
-            let _ = writeln!(s, "volume       n/a (open)");
-        }
-    }
+    row("orientation", orientation_word(r.orientation).into());
+    row("area", format!("{:.3} mm2", r.area_mm2));
+    row(
+        "volume",
+        match r.enclosed_volume_mm3 {
+            Some(v) => format!("{v:.3} mm3"),
+            None => "n/a (open)".into(),
+        },
+    );
     let b = &r.bounding_box;
-    let _ = writeln!(
-        s,
-        "extent       x {:.3}..{:.3}  y {:.3}..{:.3}  z {:.3}..{:.3} mm",
-        b.min[0], b.max[0], b.min[1], b.max[1], b.min[2], b.max[2]
+    row(
+        "extent",
+        format!(
+            "x {:.3}..{:.3}, y {:.3}..{:.3}, z {:.3}..{:.3} mm",
+            b.min[0], b.max[0], b.min[1], b.max[1], b.min[2], b.max[2]
+        ),
     );
     if r.ready_to_map {
-        let _ = writeln!(s, "verdict      ready to map");
+        row("verdict", "ready to map".into());
     } else {
-        let _ = writeln!(s, "verdict      NOT ready to map");
+        row("verdict", "NOT ready to map".into());
         for reason in &r.reasons {
-            let _ = writeln!(s, "  - {}: {}", reason.code, reason.message);
+            row(&format!("  {}", reason.code), reason.message.clone());
         }
     }
-    s
+    let mut out = String::new();
+    for (label, value) in lines {
+        out.push_str(&format!("{label:<22} {value}\n"));
+    }
+    out
 }
 
 #[cfg(test)]

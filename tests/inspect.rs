@@ -578,7 +578,7 @@ fn command_line_json_text_and_status() {
     assert!(out.status.success());
     let text = String::from_utf8(out.stdout).unwrap();
     assert!(
-        text.contains("NOT ready to map") && text.contains("genus: "),
+        text.contains("NOT ready to map") && text.contains("\n  genus "),
         "{text}"
     );
     let out = horosphere(&[

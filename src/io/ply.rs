@@ -201,12 +201,14 @@ fn parse_header(path: &Path, bytes: &[u8]) -> Result<Header> {
                 })?;
                 let (c, i) = match (Scalar::parse(count), Scalar::parse(item)) {
                     (Some(c), Some(i)) => (c, i),
-                    _ => return Err(header_err(
-                        path,
-                        format!(
+                    _ => {
+                        return Err(header_err(
+                            path,
+                            format!(
                             "line {number}: list types `{count} {item}`; expected PLY scalar types"
                         ),
-                    )),
+                        ))
+                    }
                 };
                 let corners =
                     el.name == "face" && (*name == "vertex_indices" || *name == "vertex_index");
@@ -588,6 +590,9 @@ fn read_binary(
         big_endian,
     };
     for e in &h.elements {
+        if e.properties.is_empty() {
+            continue; // items of no bytes: nothing to read, however many
+        }
         let is_vertex = e.name == "vertex";
         let is_face = e.name == "face";
         for i in 0..e.count {
@@ -890,6 +895,13 @@ mod tests {
         let e = err(b"ply\nformat ascii 1.0\nelement vertex 3\nproperty float x\nproperty float y\nproperty float z\n\
                       element face 1\nproperty list uchar int vertex_indices\nend_header\n0 0 0\n1 0 0 5\n0 1 0\n3 0 1 2\n");
         assert!(e.contains("line 11") && e.contains("more values"), "{e}");
+        // An element without properties is empty however large its count
+        // (no loop over its items), and the mesh after it still reads.
+        let mut b = b"ply\nformat binary_little_endian 1.0\nelement nothing 18446744073709551615\n"
+            .to_vec();
+        let body = to_bytes(&m, PlyEncoding::BinaryLittleEndian);
+        b.extend_from_slice(&body[b"ply\nformat binary_little_endian 1.0\n".len()..]);
+        assert_eq!(parse(p(), &b).unwrap(), m);
         // Header problems.
         let e = err(b"ply\nformat ascii 1.0\nelement vertex 0\nproperty float x\nproperty float y\nproperty float z\n\
                       element face 0\nproperty list uchar int vertex_indices\nend_header\n");
