@@ -42,7 +42,11 @@ fn measure(reps: usize, mut f: impl FnMut()) -> (f64, Option<f64>) {
 
 fn show(label: &str, (wall, cpu): (f64, Option<f64>)) {
     match cpu {
-        Some(c) => println!("{label:<38} wall {:7.1} ms   cpu {:7.1} ms", wall * 1e3, c * 1e3),
+        Some(c) => println!(
+            "{label:<38} wall {:7.1} ms   cpu {:7.1} ms",
+            wall * 1e3,
+            c * 1e3
+        ),
         None => println!("{label:<38} wall {:7.1} ms", wall * 1e3),
     }
 }
