@@ -473,8 +473,10 @@ fn duplicate_pairs(positions: &[Vec3], tol: f64) -> Vec<[u32; 2]> {
     } else {
         // Grid of cell size `tol`: a partner lies in one of the 27 cells
         // around a vertex's cell. Cells are sorted by (x, y, z), so for each
-        // (dx, dy) the three cells z - 1..=z + 1 are one contiguous run: nine
-        // binary searches per occupied cell.
+        // (dx, dy) the three cells z - 1..=z + 1 are one contiguous run, and
+        // its start only moves forward as the occupied cells are visited in
+        // order (a translation keeps the order): nine cursors sweep the list
+        // once, O(V) after the sort.
         let cell_of = |p: &Vec3| -> [i64; 3] {
             [
                 (p[0] / tol).floor() as i64,
@@ -490,16 +492,21 @@ fn duplicate_pairs(positions: &[Vec3], tol: f64) -> Vec<[u32; 2]> {
         sorted.sort_unstable();
         let tol2 = tol * tol;
         let mut best = vec![u32::MAX; n];
+        let mut cursor = [0usize; 9];
         let mut g = 0;
         while g < n {
             let c = sorted[g].0;
             let g_end = g + sorted[g..].partition_point(|x| x.0 == c);
-            for dx in -1i64..=1 {
-                for dy in -1i64..=1 {
+            for (k, cur) in cursor.iter_mut().enumerate() {
+                let (dx, dy) = (k as i64 / 3 - 1, k as i64 % 3 - 1);
+                {
                     let (x, y) = (c[0].saturating_add(dx), c[1].saturating_add(dy));
                     let lo_key = [x, y, c[2].saturating_sub(1)];
                     let hi_key = [x, y, c[2].saturating_add(1)];
-                    let lo = sorted.partition_point(|e| e.0 < lo_key);
+                    while *cur < n && sorted[*cur].0 < lo_key {
+                        *cur += 1;
+                    }
+                    let lo = *cur;
                     for &(_, j) in sorted[lo..].iter().take_while(|e| e.0 <= hi_key) {
                         for &(_, i) in &sorted[g..g_end] {
                             if j < i && j < best[i as usize] {

@@ -633,14 +633,20 @@ fn every_json_field_is_documented() {
 
 #[test]
 fn report_is_identical_whatever_the_thread_count() {
-    let mut m = union(&[bow_tie(), translated(&torus(3.0, 1.0, 20, 10), [9.0, 0.0, 0.0])]);
+    let mut m = union(&[
+        bow_tie(),
+        translated(&torus(3.0, 1.0, 20, 10), [9.0, 0.0, 0.0]),
+    ]);
     m.faces[3].swap(0, 1);
     let opts = InspectOptions {
         duplicate_tolerance_mm: 0.3,
         ..InspectOptions::default()
     };
     let json = |threads: usize| {
-        let pool = rayon::ThreadPoolBuilder::new().num_threads(threads).build().unwrap();
+        let pool = rayon::ThreadPoolBuilder::new()
+            .num_threads(threads)
+            .build()
+            .unwrap();
         let r = pool.install(|| inspect(&m, &opts).unwrap());
         serde_json::to_string(&r).unwrap()
     };
