@@ -153,8 +153,8 @@ pub struct LoopInfo {
     pub edges: usize,
     /// Sum of the edge lengths (mm).
     pub length_mm: f64,
-    /// False when the walk could not return to its start (a boundary broken
-    /// by inconsistent orientation or non-manifold vertices).
+    /// False when the walk could not return to its start vertex (a vertex
+    /// with an odd number of boundary edges, next to a non-manifold edge).
     pub closed: bool,
     /// The first vertices along the loop, in the faces' own direction.
     pub vertices: Vec<u32>,
@@ -384,57 +384,75 @@ fn vertex_fans(mesh: &TriMesh) -> Vec<u32> {
     fans
 }
 
-/// Directed boundary walks: `(vertices, edges as (a, b), closed)`.
+/// One walk along boundary edges.
 struct Walk {
+    /// The edges in walking order, each as (from, to).
     sides: Vec<(u32, u32)>,
+    /// The walk came back to its first vertex.
     closed: bool,
+    /// The face on the first edge (names the component).
     face: u32,
 }
 
+/// Boundary loops: walks along the edges with one face. From each vertex
+/// the walk continues along an unused boundary edge that its face traverses
+/// away from the vertex (so on a consistently oriented surface a loop keeps
+/// the faces on its left), and failing that along any unused boundary edge
+/// at the vertex, so that a flipped face on the boundary does not split a
+/// loop. Every boundary edge lies on exactly one walk.
 fn boundary_walks(mesh: &TriMesh, table: &EdgeTable) -> Vec<Walk> {
-    // Directed boundary sides a -> b as their face traverses them, with the face.
-    let mut out: Vec<(u32, u32, u32)> = Vec::new();
+    // Boundary sides a -> b as their face traverses them, with the face.
+    let mut sides: Vec<(u32, u32, u32)> = Vec::new();
     for e in 0..table.len() {
         if table.valence(e) == 1 {
             let inc = table.faces_of(e)[0];
             let t = mesh.faces[inc.face as usize];
             let s = inc.slot as usize;
-            out.push((t[s], t[(s + 1) % 3], inc.face));
+            sides.push((t[s], t[(s + 1) % 3], inc.face));
         }
     }
-    out.sort_unstable();
-    let mut used = vec![false; out.len()];
+    sides.sort_unstable();
+    // Both ends of every side: (vertex, leaves the vertex in face order?, side).
+    let mut ends: Vec<(u32, bool, u32)> = Vec::with_capacity(2 * sides.len());
+    for (i, &(a, b, _)) in sides.iter().enumerate() {
+        ends.push((a, false, i as u32)); // `false` sorts first: outgoing
+        ends.push((b, true, i as u32));
+    }
+    ends.sort_unstable();
+    let mut used = vec![false; sides.len()];
     let mut walks = Vec::new();
-    for start in 0..out.len() {
+    for start in 0..sides.len() {
         if used[start] {
             continue;
         }
-        let mut sides = Vec::new();
+        let (first, _, face) = sides[start];
+        let mut walk = Vec::new();
         let mut cur = start;
-        let (first, _, face) = out[start];
+        let mut from = first;
         let closed = loop {
             used[cur] = true;
-            let (a, b, _) = out[cur];
-            sides.push((a, b));
-            if b == first {
+            let (a, b, _) = sides[cur];
+            let to = if a == from { b } else { a };
+            walk.push((from, to));
+            if to == first {
                 break true;
             }
-            let mut k = out.partition_point(|&(x, _, _)| x < b);
-            let mut found = None;
-            while k < out.len() && out[k].0 == b {
-                if !used[k] {
-                    found = Some(k);
-                    break;
+            // Unused sides at `to`, outgoing ones first.
+            let k = ends.partition_point(|&(v, _, _)| v < to);
+            let next = ends[k..]
+                .iter()
+                .take_while(|&&(v, _, _)| v == to)
+                .find(|&&(_, _, i)| !used[i as usize]);
+            match next {
+                Some(&(_, _, i)) => {
+                    cur = i as usize;
+                    from = to;
                 }
-                k += 1;
-            }
-            match found {
-                Some(k) => cur = k,
                 None => break false,
             }
         };
         walks.push(Walk {
-            sides,
+            sides: walk,
             closed,
             face,
         });

@@ -248,6 +248,25 @@ fn disk_has_one_boundary_loop_of_the_polygon_length() {
 }
 
 #[test]
+fn flipped_face_on_the_boundary_keeps_one_loop() {
+    // A disk whose boundary runs through a flipped face: still one closed
+    // loop of 48 edges, so chi = 1 = 2 - 2g - 1 still gives genus 0.
+    let mut m = disk(20.0, 3, 48);
+    // The second-last face is [ring 2 #47, ring 3 #47, ring 3 #0]: its side
+    // ring 3 #47 -> #0 is on the boundary.
+    let f = m.n_faces() - 2;
+    assert_eq!(m.faces[f][1..], [1 + 2 * 48 + 47, 1 + 2 * 48]);
+    m.faces[f].swap(1, 2);
+    let r = run(&m);
+    assert_eq!(r.boundary.loops, 1);
+    let l = &r.boundary.listed[0];
+    assert!(l.closed && l.edges == 48);
+    assert!(rel(l.length_mm, inscribed_perimeter(20.0, 48)) < 1e-12);
+    assert_eq!(r.components.listed[0].genus, Some(0));
+    assert_eq!(codes(&r), vec!["open", "inconsistent_orientation"]);
+}
+
+#[test]
 fn sphere_with_two_round_holes() {
     // A sphere of radius 40 cut at colatitudes 30 and 120 degrees: two loops,
     // chi = 2 - 2 = 0 (Massey 1991). Each loop is an inscribed 96-gon of the
