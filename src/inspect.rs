@@ -38,14 +38,15 @@
 //! faces, duplicate or unreferenced vertices; otherwise every failed
 //! condition is a [`Reason`] with a stable code.
 //!
-//! Cost: one sort of the `3F` face sides (in [`EdgeTable::new`]), a sort of
-//! the `V` positions, and near-linear union-find passes; no hash map per edge.
+//! Cost: a counting sort of the `3F` face sides by their smaller vertex (in
+//! [`EdgeTable::new`]), the same for the corners at each vertex, a sort of
+//! the `V` positions, and near-linear union-find passes; no hash map.
 //! Output is deterministic (no dependence on thread count or hashing).
 //!
 //! Hook for handle detection (a later stage): [`ComponentInfo::genus`] tells
 //! how many handles each component has.
 
-use crate::error::Result;
+use crate::error::{Error, Result};
 use crate::mesh::topology::{face_components, EdgeTable};
 use crate::mesh::{cross, dot, norm, sub, TriMesh, Vec3};
 use serde::{Deserialize, Serialize};
@@ -550,9 +551,22 @@ fn duplicate_pairs(positions: &[Vec3], tol: f64) -> Vec<[u32; 2]> {
 }
 
 /// Inspect `mesh`. The mesh is validated first (indices in range, finite
-/// coordinates, not empty); an invalid mesh gives [`crate::Error::Invalid`].
+/// coordinates, not empty); an invalid mesh or option gives
+/// [`Error::Invalid`].
 pub fn inspect(mesh: &TriMesh, opts: &InspectOptions) -> Result<Inspection> {
     mesh.validate()?;
+    if !(opts.duplicate_tolerance_mm >= 0.0 && opts.duplicate_tolerance_mm.is_finite()) {
+        return Err(Error::Invalid(format!(
+            "duplicate tolerance {} mm; expected a finite number >= 0",
+            opts.duplicate_tolerance_mm
+        )));
+    }
+    if !(opts.degenerate_relative_tolerance >= 0.0 && opts.degenerate_relative_tolerance < 1.0) {
+        return Err(Error::Invalid(format!(
+            "degenerate-face relative tolerance {}; expected a number in [0, 1)",
+            opts.degenerate_relative_tolerance
+        )));
+    }
     let nv = mesh.n_vertices();
     let nf = mesh.n_faces();
     // Four independent passes, two by two on the thread pool; each is

@@ -554,6 +554,20 @@ fn invalid_mesh_is_an_error_not_a_panic() {
         faces: vec![[0, 1, 3]],
     };
     assert!(inspect(&m, &InspectOptions::default()).is_err());
+    let m = icosphere(0, 1.0);
+    for (dup, deg) in [
+        (-1.0, 1e-10),
+        (f64::NAN, 1e-10),
+        (0.0, -1.0),
+        (0.0, f64::NAN),
+    ] {
+        let opts = InspectOptions {
+            duplicate_tolerance_mm: dup,
+            degenerate_relative_tolerance: deg,
+            ..InspectOptions::default()
+        };
+        assert!(inspect(&m, &opts).is_err(), "{dup} {deg}");
+    }
 }
 
 // ---- command line and JSON -----------------------------------------------
