@@ -673,7 +673,8 @@ pub fn inspect(mesh: &TriMesh, opts: &InspectOptions) -> Result<Inspection> {
             }
         })
         .collect();
-    let boundary_length: f64 = loops.iter().map(|l| l.length_mm).sum();
+    // A fold from +0 (an empty f64 `sum` is -0, which would print as "-0.0").
+    let boundary_length = loops.iter().fold(0.0, |acc, l| acc + l.length_mm);
     let n_loops = loops.len();
     loops.sort_by(|x, y| {
         y.edges

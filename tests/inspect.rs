@@ -144,6 +144,11 @@ fn icosphere_is_a_ready_genus_zero_sphere() {
     assert!(c.manifold && c.orientable);
     assert_eq!(r.orientation, Orientation::Outward);
     assert!(r.ready_to_map && r.reasons.is_empty(), "{:?}", r.reasons);
+    assert_eq!(
+        r.boundary.length_mm.to_bits(),
+        0.0f64.to_bits(),
+        "+0, not -0"
+    );
     // An inscribed polyhedron: volume and area just below the sphere's
     // (4/3 pi R^3, 4 pi R^2), within 1.5 % at 642 vertices.
     let v = r.enclosed_volume_mm3.unwrap();
