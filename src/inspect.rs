@@ -307,6 +307,25 @@ fn local_find(parent: &mut [u32], mut x: u32) -> u32 {
     x
 }
 
+/// Fast test for the usual vertex: following each corner `(next, prev, face)`
+/// to the corner whose `prev` is its `next` (the face across the edge to
+/// `next`, consistently oriented) visits all corners once and returns to the
+/// first. Then every corner shares an edge with its successor: one fan.
+/// False means "not shown", and the general count decides.
+fn single_cycle(cs: &[[u32; 3]]) -> bool {
+    let k = cs.len();
+    let mut cur = 0usize;
+    for step in 1..=k {
+        let want = cs[cur][0];
+        match cs.iter().position(|c| c[1] == want) {
+            Some(0) => return step == k,
+            Some(j) => cur = j,
+            None => return false,
+        }
+    }
+    false
+}
+
 /// Number of fans at each vertex: the faces around the vertex, joined when
 /// they share an edge at it (of any valence) or are the same face, fall into
 /// this many groups; more than one is a bow-tie. Vertex by vertex the corners
@@ -339,6 +358,11 @@ fn vertex_fans(mesh: &TriMesh) -> Vec<u32> {
     for v in 0..nv {
         let cs = &corner[start[v] as usize..start[v + 1] as usize];
         let k = cs.len();
+        if k <= 32 && single_cycle(cs) {
+            // The common case, an interior vertex of an oriented manifold.
+            fans[v] = 1;
+            continue;
+        }
         parent.clear();
         parent.extend(0..k as u32);
         let mut groups = k as u32;
@@ -1140,6 +1164,13 @@ mod tests {
             faces,
         });
         assert_eq!(fans[0], 1);
+        // Every vertex of a sphere is one fan, through the fast test or,
+        // around a flipped face, through the general count.
+        let mut m = crate::mesh::shapes::icosphere(2, 1.0);
+        assert!(vertex_fans(&m).iter().all(|&k| k == 1));
+        m.faces[5].swap(0, 1);
+        assert!(!single_cycle(&[[1, 2, 0], [2, 1, 1]][..1]));
+        assert!(vertex_fans(&m).iter().all(|&k| k == 1));
         // A face with all three corners at one vertex is one fan.
         let fans = vertex_fans(&TriMesh {
             positions: vec![[0.0; 3]; 1],
