@@ -65,8 +65,9 @@ impl MeshFormat {
         }
     }
 
-    /// The format announced by the first bytes of a file: `<?xml` or
-    /// `<GIFTI` (after an optional byte-order mark and white space) for
+    /// The format announced by the first bytes of a file: `<?xml`,
+    /// `<!DOCTYPE GIFTI` or `<GIFTI` (after an optional byte-order mark and
+    /// white space) for
     /// GIFTI, a first line `ply` for PLY, a first token ending in `OFF` for
     /// OFF. OBJ has no magic bytes.
     pub fn from_magic(head: &[u8]) -> Option<MeshFormat> {
@@ -76,7 +77,10 @@ impl MeshFormat {
             .position(|b| !b.is_ascii_whitespace())
             .unwrap_or(head.len());
         let body = &head[start..];
-        if body.starts_with(b"<?xml") || body.starts_with(b"<GIFTI") {
+        if body.starts_with(b"<?xml")
+            || body.starts_with(b"<GIFTI")
+            || body.starts_with(b"<!DOCTYPE GIFTI")
+        {
             return Some(MeshFormat::Gifti);
         }
         if head.starts_with(b"ply\n") || head.starts_with(b"ply\r\n") {
