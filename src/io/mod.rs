@@ -11,8 +11,9 @@
 //! Working Group, 2011), OBJ (Wavefront Technologies, "Object Files (.obj)",
 //! Appendix B1 of the Advanced Visualizer manual), PLY (Turk, "The PLY polygon
 //! file format", 1994) and OFF (the OFF format of Geomview: Phillips, Levy,
-//! Munzner, "Geomview: an interactive geometry viewer", Notices AMS 40, 1993). [`read_mesh`] and [`write_mesh`] dispatch on the file
-//! name's extension and, for reading, on magic bytes.
+//! Munzner, "Geomview: an interactive geometry viewer", Notices AMS 40,
+//! 1993). [`read_mesh`] and [`write_mesh`] dispatch on the file name's
+//! extension and, for reading, on magic bytes.
 //!
 //! Polygons with more than three corners (OBJ, PLY, OFF) are split into
 //! triangles by a fan from their first corner: `(v0, v1, ..., vk)` becomes

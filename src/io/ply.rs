@@ -174,7 +174,10 @@ fn parse_header(path: &Path, bytes: &[u8]) -> Result<Header> {
                     other => {
                         return Err(header_err(
                             path,
-                            format!("format `{other}`; expected ascii, binary_little_endian or binary_big_endian"),
+                            format!(
+                                "format `{other}`; expected {}",
+                                "ascii, binary_little_endian or binary_big_endian"
+                            ),
                         ))
                     }
                 });
@@ -344,7 +347,7 @@ fn check_header(path: &Path, h: &Header, body_len: usize) -> Result<(usize, usiz
         return Err(header_err(
             path,
             format!(
-                "the declared elements need at least {need} bytes of data but the file has {body_len} after the header"
+                "the elements need at least {need} data bytes; the file has {body_len} after the header"
             ),
         ));
     }
@@ -393,7 +396,7 @@ pub fn parse(path: &Path, bytes: &[u8]) -> Result<TriMesh> {
             return Err(Error::bad_file(
                 path,
                 format!("face {f}"),
-                format!("corner index {v} is out of range; expected an index below the vertex count {n}"),
+                format!("corner index {v} is out of range; expected below the vertex count {n}"),
             ));
         }
     }
@@ -488,7 +491,7 @@ fn read_ascii(path: &Path, h: &Header, body: &[u8], sink: &mut Sink) -> Result<(
                             return Err(Error::bad_file(
                                 path,
                                 element.as_str(),
-                                format!("vertex {i} has a non-finite coordinate {x}; expected finite millimetres"),
+                                format!("vertex {i} has a non-finite coordinate {x}; expected millimetres"),
                             ));
                         }
                         p[k] = x;
