@@ -494,84 +494,121 @@ fn exact_key(p: &Vec3) -> [u64; 3] {
 
 /// For each vertex `i` that has a lower-numbered vertex within `tol` of it,
 /// the pair `[j, i]` with the lowest such `j`, in increasing `i`.
+///
+/// Identical positions are grouped first by sorting (exact, -0 = +0); with
+/// `tol > 0` the distinct positions, each named by its lowest vertex, are
+/// then searched on a grid of cell size `tol` (see [`near_on_grid`]), so
+/// many vertices collapsed onto one point cost a sort, not a quadratic scan.
 fn duplicate_pairs(positions: &[Vec3], tol: f64) -> Vec<[u32; 2]> {
     let n = positions.len();
-    let mut pairs = Vec::new();
-    if tol <= 0.0 || !tol.is_finite() {
-        let mut keyed: Vec<([u64; 3], u32)> = positions
-            .iter()
-            .enumerate()
-            .map(|(i, p)| (exact_key(p), i as u32))
-            .collect();
-        keyed.sort_unstable();
-        let mut k = 0;
-        while k < n {
-            let mut m = k + 1;
-            while m < n && keyed[m].0 == keyed[k].0 {
-                pairs.push([keyed[k].1, keyed[m].1]);
-                m += 1;
-            }
-            k = m;
+    let mut keyed: Vec<([u64; 3], u32)> = positions
+        .iter()
+        .enumerate()
+        .map(|(i, p)| (exact_key(p), i as u32))
+        .collect();
+    keyed.sort_unstable();
+    // Lowest vertex at each position, and the distinct positions.
+    let mut rep_of = vec![0u32; n];
+    let mut reps: Vec<u32> = Vec::new();
+    let mut k = 0;
+    while k < n {
+        let r = keyed[k].1; // lowest index of its group (sorted by key, then index)
+        let mut m = k;
+        while m < n && keyed[m].0 == keyed[k].0 {
+            rep_of[keyed[m].1 as usize] = r;
+            m += 1;
         }
+        reps.push(r);
+        k = m;
+    }
+    let near = if tol > 0.0 && tol.is_finite() {
+        near_on_grid(positions, &reps, tol)
     } else {
-        // Grid of cell size `tol`: a partner lies in one of the 27 cells
-        // around a vertex's cell. Cells are sorted by (x, y, z), so for each
-        // (dx, dy) the three cells z - 1..=z + 1 are one contiguous run, and
-        // its start only moves forward as the occupied cells are visited in
-        // order (a translation keeps the order): nine cursors sweep the list
-        // once, O(V) after the sort.
-        let cell_of = |p: &Vec3| -> [i64; 3] {
-            [
-                (p[0] / tol).floor() as i64,
-                (p[1] / tol).floor() as i64,
-                (p[2] / tol).floor() as i64,
-            ]
+        vec![u32::MAX; n]
+    };
+    let mut pairs = Vec::new();
+    for i in 0..n {
+        let r = rep_of[i];
+        // Lowest partner: the group's first vertex (distance 0) or the lowest
+        // vertex of another position within `tol`, whichever is lower.
+        let j = if r as usize == i {
+            near[i]
+        } else {
+            r.min(near[r as usize])
         };
-        let mut sorted: Vec<([i64; 3], u32)> = positions
-            .iter()
-            .enumerate()
-            .map(|(i, p)| (cell_of(p), i as u32))
-            .collect();
-        sorted.sort_unstable();
-        let tol2 = tol * tol;
-        let mut best = vec![u32::MAX; n];
-        let mut cursor = [0usize; 9];
-        let mut g = 0;
-        while g < n {
-            let c = sorted[g].0;
-            let g_end = g + sorted[g..].partition_point(|x| x.0 == c);
-            for (k, cur) in cursor.iter_mut().enumerate() {
-                let (dx, dy) = (k as i64 / 3 - 1, k as i64 % 3 - 1);
-                {
-                    let (x, y) = (c[0].saturating_add(dx), c[1].saturating_add(dy));
-                    let lo_key = [x, y, c[2].saturating_sub(1)];
-                    let hi_key = [x, y, c[2].saturating_add(1)];
-                    while *cur < n && sorted[*cur].0 < lo_key {
-                        *cur += 1;
-                    }
-                    let lo = *cur;
-                    for &(_, j) in sorted[lo..].iter().take_while(|e| e.0 <= hi_key) {
-                        for &(_, i) in &sorted[g..g_end] {
-                            if j < i && j < best[i as usize] {
-                                let d = sub(positions[i as usize], positions[j as usize]);
-                                if dot(d, d) <= tol2 {
-                                    best[i as usize] = j;
-                                }
-                            }
+        if (j as usize) < i {
+            pairs.push([j, i as u32]);
+        }
+    }
+    pairs
+}
+
+/// For each representative vertex `r` in `reps` (distinct positions), the
+/// lowest other representative within `tol` (at index `r` of the result;
+/// `u32::MAX` if none).
+///
+/// Grid of cell size `tol`: a partner lies in one of the 27 cells around a
+/// vertex's cell. Cells are sorted by (x, y, z), so for each (dx, dy) the
+/// three cells z - 1..=z + 1 are one contiguous run, whose start only moves
+/// forward as the occupied cells are visited in order (a translation keeps
+/// the order): nine cursors sweep the list, O(V) after the sort. Within a
+/// cell the vertices are in increasing order, so the scan for a vertex stops
+/// at the first partner found.
+fn near_on_grid(positions: &[Vec3], reps: &[u32], tol: f64) -> Vec<u32> {
+    let cell_of = |p: &Vec3| -> [i64; 3] {
+        [
+            (p[0] / tol).floor() as i64,
+            (p[1] / tol).floor() as i64,
+            (p[2] / tol).floor() as i64,
+        ]
+    };
+    let mut sorted: Vec<([i64; 3], u32)> = reps
+        .iter()
+        .map(|&r| (cell_of(&positions[r as usize]), r))
+        .collect();
+    sorted.sort_unstable();
+    let m = sorted.len();
+    let tol2 = tol * tol;
+    let mut near = vec![u32::MAX; positions.len()];
+    let mut cursor = [0usize; 9];
+    let mut g = 0;
+    while g < m {
+        let c = sorted[g].0;
+        let g_end = g + sorted[g..].partition_point(|x| x.0 == c);
+        for (k, cur) in cursor.iter_mut().enumerate() {
+            let (dx, dy) = (k as i64 / 3 - 1, k as i64 % 3 - 1);
+            let (x, y) = (c[0].saturating_add(dx), c[1].saturating_add(dy));
+            let lo_key = [x, y, c[2].saturating_sub(1)];
+            let hi_key = [x, y, c[2].saturating_add(1)];
+            while *cur < m && sorted[*cur].0 < lo_key {
+                *cur += 1;
+            }
+            // Up to three cells in this run, each scanned in index order.
+            let mut seg = *cur;
+            while seg < m && sorted[seg].0 <= hi_key {
+                let cell = sorted[seg].0;
+                let seg_end = seg + sorted[seg..].partition_point(|x| x.0 == cell);
+                for &(_, i) in &sorted[g..g_end] {
+                    for &(_, j) in &sorted[seg..seg_end] {
+                        if j >= near[i as usize] {
+                            break;
+                        }
+                        if j == i {
+                            continue;
+                        }
+                        let d = sub(positions[i as usize], positions[j as usize]);
+                        if dot(d, d) <= tol2 {
+                            near[i as usize] = j;
+                            break;
                         }
                     }
                 }
-            }
-            g = g_end;
-        }
-        for (i, &j) in best.iter().enumerate() {
-            if j != u32::MAX {
-                pairs.push([j, i as u32]);
+                seg = seg_end;
             }
         }
+        g = g_end;
     }
-    pairs.sort_unstable_by_key(|p| p[1]);
-    pairs
+    near
 }
 
 /// Inspect `mesh`. The mesh is validated first (indices in range, finite
@@ -1211,6 +1248,26 @@ mod tests {
             assert!(!brute.is_empty());
             assert_eq!(duplicate_pairs(&pts, tol), brute, "tol {tol}");
         }
+    }
+
+    #[test]
+    fn collapsed_vertices_pair_with_the_first() {
+        // 5000 vertices on one point, 5000 on another 1.5 tol away: every
+        // vertex pairs with the first of its point; the points are not
+        // within the tolerance of each other.
+        let tol = 0.01;
+        let mut pts = vec![[1.0, 2.0, 3.0]; 5000];
+        pts.extend(vec![[1.0 + 1.5 * tol, 2.0, 3.0]; 5000]);
+        for t in [0.0, tol] {
+            let pairs = duplicate_pairs(&pts, t);
+            assert_eq!(pairs.len(), 9998);
+            assert!(pairs[..4999].iter().all(|&[j, _]| j == 0));
+            assert!(pairs[4999..].iter().all(|&[j, _]| j == 5000));
+        }
+        // At 2 tol the two points merge: all pair with vertex 0.
+        let pairs = duplicate_pairs(&pts, 2.0 * tol);
+        assert_eq!(pairs.len(), 9999);
+        assert!(pairs.iter().all(|&[j, _]| j == 0));
     }
 
     #[test]
