@@ -48,7 +48,7 @@ fn holed_sphere_is_closed_with_dp_and_fan() {
     let dir = |v: usize| full.positions[v];
     punch(&mut m, dir(0), 0.1); // one-ring: 5 edges
     punch(&mut m, dir(1), 0.1); // one-ring: 5 edges
-    punch(&mut m, dir(2), 5.0); // two-ring: about 15 edges
+    punch(&mut m, dir(2), 5.0); // two-ring: 10 edges
     punch(&mut m, dir(3), 20.0); // large cap: more than 20 edges
     let opts = RepairOptions {
         max_dp_hole_edges: 20,
@@ -61,7 +61,9 @@ fn holed_sphere_is_closed_with_dp_and_fan() {
     assert_eq!(r.log.genus, 0);
     let methods: Vec<(usize, FillMethod)> =
         r.log.holes.iter().map(|h| (h.boundary_edges, h.method)).collect();
-    assert_eq!(r.log.holes.len(), 4, "{methods:?}");
+    let mut sizes: Vec<usize> = methods.iter().map(|x| x.0).collect();
+    sizes.sort_unstable();
+    assert_eq!(sizes, vec![5, 5, 10, 35], "{methods:?}");
     let dp = methods
         .iter()
         .filter(|(_, k)| *k == FillMethod::AngleAreaDp)
@@ -90,14 +92,28 @@ fn holed_sphere_is_closed_with_dp_and_fan() {
     assert!(ring.boundary_length_mm > 5.0 * 0.5 * max_edge / 1.5);
     assert!(ring.boundary_length_mm < 5.0 * max_edge);
     // Area within 1% of the unholed sphere's; the fills are flatter than the
-    // sphere, so slightly less. A flat disc over a cap of angular radius t
-    // loses a fraction (1 - cos t)^2 / 4 of the sphere's area (spherical cap
-    // area 2 pi R^2 (1 - cos t) versus pi R^2 sin^2 t): 0.09% for 20 deg.
+    // sphere (inscribed in it), so slightly less.
     let a0 = full.area();
     let a = r.mesh.area();
+    eprintln!(
+        "holed sphere: holes {methods:?}, lengths {:?} mm, area {a:.3} vs {a0:.3} mm^2 ({:.4}%)",
+        r.log.holes.iter().map(|h| h.boundary_length_mm).collect::<Vec<_>>(),
+        100.0 * (a - a0) / a0
+    );
     assert!(a < a0);
     assert!((a - a0).abs() < 0.01 * a0, "{a} vs {a0}");
-    assert!((a - a0).abs() > 0.0004 * a0, "the large cap must cost area");
+    // The large cap: 195 faces of 1140.741 mm^2 removed, 35 boundary edges,
+    // fan of 1125.397 mm^2 around the boundary centroid at radius 46.330 mm.
+    // Independent check: a numpy re-implementation of the level-4 icosphere
+    // and of the fan over the same boundary gave these figures.
+    assert_eq!(fans[0].boundary_edges, 35);
+    assert!((fans[0].area_added_mm2 - 1125.3969).abs() < 1e-3);
+    let centre = r.mesh.positions[r.mesh.n_vertices() - 1];
+    assert!((norm(centre) - 46.3298).abs() < 1e-3);
+    let removed: f64 = full.area() - m.area();
+    let filled: f64 = r.log.holes.iter().map(|h| h.area_added_mm2).sum();
+    assert!((a - (m.area() + filled)).abs() < 1e-6 * a);
+    assert!(filled < removed && filled > 0.98 * removed, "{filled} vs {removed}");
     // Exactly one created vertex: the fan centre, masked and listed, on the
     // axis of the large cap.
     let n = r.mesh.n_vertices();
@@ -404,4 +420,28 @@ fn bad_options_are_refused() {
         repair(&all_bad, &RepairOptions::default()),
         Err(Error::NotReady(_))
     ));
+}
+
+/// Size check on a cortex-sized mesh (163,842 vertices): run with
+/// `cargo test --lib repair::tests::large -- --ignored --nocapture`.
+#[test]
+#[ignore]
+fn large_sphere_with_holes() {
+    let full = icosphere(7, 100.0);
+    let mut m = full.clone();
+    for v in 0..12 {
+        punch(&mut m, full.positions[v], 0.5 + v as f64);
+    }
+    let t = std::time::Instant::now();
+    let r = repair(&m, &RepairOptions::default()).unwrap();
+    eprintln!(
+        "repair of {} vertices, {} faces, {} holes: {:.2} s",
+        m.n_vertices(),
+        m.n_faces(),
+        r.log.holes.len(),
+        t.elapsed().as_secs_f64()
+    );
+    check_closed_outward(&r);
+    assert_eq!(r.log.euler_characteristic, 2);
+    assert_eq!(r.log.holes.len(), 12);
 }
