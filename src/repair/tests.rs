@@ -445,3 +445,54 @@ fn large_sphere_with_holes() {
     assert_eq!(r.log.euler_characteristic, 2);
     assert_eq!(r.log.holes.len(), 12);
 }
+
+#[test]
+fn existing_edges_are_not_reused_by_a_fill() {
+    // Tall square pyramid, base split by diagonal (a, c); two side faces
+    // removed leave the hole (a, b, c, e). Its minimum-area triangulation
+    // would use the diagonal (a, c), which the base already has (three faces
+    // on one edge); the fill must use (b, e) and restore the pyramid.
+    let (a, b, c, d, e) = (0u32, 1, 2, 3, 4);
+    let positions = vec![
+        [0.0, 0.0, 0.0],
+        [10.0, 0.0, 0.0],
+        [10.0, 10.0, 0.0],
+        [0.0, 10.0, 0.0],
+        [5.0, 5.0, 40.0],
+    ];
+    let pyramid = vec![
+        [a, b, e],
+        [b, c, e],
+        [c, d, e],
+        [d, a, e],
+        [a, c, b],
+        [a, d, c],
+    ];
+    let holed = TriMesh {
+        positions: positions.clone(),
+        faces: pyramid[2..].to_vec(),
+    };
+    let area = |t: [u32; 3]| {
+        let [p, q, r] = t.map(|v| positions[v as usize]);
+        0.5 * norm(cross(sub(q, p), sub(r, p)))
+    };
+    // The forbidden choice really is the smaller one here.
+    assert!(area([a, b, c]) + area([a, c, e]) < area([a, b, e]) + area([b, c, e]));
+    for weight in [HoleWeight::MinArea, HoleWeight::AngleThenArea] {
+        let opts = RepairOptions {
+            hole_weight: weight,
+            ..Default::default()
+        };
+        let r = repair(&holed, &opts).unwrap();
+        check_closed_outward(&r);
+        let norm_tri = |t: [u32; 3]| {
+            let k = (0..3).min_by_key(|&k| t[k]).unwrap_or(0);
+            [t[k], t[(k + 1) % 3], t[(k + 2) % 3]]
+        };
+        let mut got: Vec<[u32; 3]> = r.mesh.faces.iter().map(|&t| norm_tri(t)).collect();
+        let mut want: Vec<[u32; 3]> = pyramid.iter().map(|&t| norm_tri(t)).collect();
+        got.sort_unstable();
+        want.sort_unstable();
+        assert_eq!(got, want, "{weight:?}");
+    }
+}
