@@ -37,6 +37,13 @@
 //! [`Halfedges::from_faces`](crate::mesh::halfedge::Halfedges::from_faces)),
 //! one component, positive volume; otherwise [`Error::Algorithm`].
 //! Everything is sequential and deterministic.
+//!
+//! Limits: non-manifold edges are refused rather than cut apart; a
+//! non-orientable surface is refused. A zero-area face inside an otherwise
+//! closed surface leaves a three-edge hole whose only triangulation is that
+//! same flat triangle, so the log shows the face dropped and a three-edge hole
+//! filled; removing such slivers by edge collapse is not done here. Handles
+//! (genus > 0) are kept: the log reports the genus, the mapper refuses it.
 
 pub mod clean;
 pub mod holes;
