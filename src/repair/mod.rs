@@ -379,12 +379,7 @@ pub fn repair(mesh: &TriMesh, opts: &RepairOptions) -> Result<Repaired> {
         },
         &edges,
     );
-    let edge_index = |a: u32, b: u32| {
-        edges
-            .edges
-            .binary_search(&[a.min(b), a.max(b)])
-            .ok()
-    };
+    let edge_index = |a: u32, b: u32| edges.edges.binary_search(&[a.min(b), a.max(b)]).ok();
     for lp in &loops {
         let n = lp.len();
         if n < 3 {
@@ -419,10 +414,7 @@ pub fn repair(mesh: &TriMesh, opts: &RepairOptions) -> Result<Repaired> {
                         HoleWeight::MinArea => FillMethod::MinAreaDp,
                         HoleWeight::AngleThenArea => FillMethod::AngleAreaDp,
                     };
-                    fill = Some((
-                        tris.iter().map(|t| t.map(|i| lp[i])).collect(),
-                        method,
-                    ));
+                    fill = Some((tris.iter().map(|t| t.map(|i| lp[i])).collect(), method));
                 }
                 None => {
                     note = Some(
@@ -470,10 +462,7 @@ pub fn repair(mesh: &TriMesh, opts: &RepairOptions) -> Result<Repaired> {
     added_flags.resize(positions.len(), false);
 
     // 7. Outward.
-    let closed = TriMesh {
-        positions,
-        faces,
-    };
+    let closed = TriMesh { positions, faces };
     let volume = closed.signed_volume();
     let mut closed = closed;
     if volume < 0.0 {

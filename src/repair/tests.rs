@@ -20,7 +20,10 @@ impl Rng {
 }
 
 fn angle_deg(a: Vec3, b: Vec3) -> f64 {
-    (dot(a, b) / (norm(a) * norm(b))).clamp(-1.0, 1.0).acos().to_degrees()
+    (dot(a, b) / (norm(a) * norm(b)))
+        .clamp(-1.0, 1.0)
+        .acos()
+        .to_degrees()
 }
 
 /// Remove every face with a vertex within `deg` degrees of direction `c`.
@@ -59,8 +62,12 @@ fn holed_sphere_is_closed_with_dp_and_fan() {
     // Genus 0: V - E + F = 2 (Euler; Massey 1991).
     assert_eq!(r.log.euler_characteristic, 2);
     assert_eq!(r.log.genus, 0);
-    let methods: Vec<(usize, FillMethod)> =
-        r.log.holes.iter().map(|h| (h.boundary_edges, h.method)).collect();
+    let methods: Vec<(usize, FillMethod)> = r
+        .log
+        .holes
+        .iter()
+        .map(|h| (h.boundary_edges, h.method))
+        .collect();
     let mut sizes: Vec<usize> = methods.iter().map(|x| x.0).collect();
     sizes.sort_unstable();
     assert_eq!(sizes, vec![5, 5, 10, 35], "{methods:?}");
@@ -97,7 +104,11 @@ fn holed_sphere_is_closed_with_dp_and_fan() {
     let a = r.mesh.area();
     eprintln!(
         "holed sphere: holes {methods:?}, lengths {:?} mm, area {a:.3} vs {a0:.3} mm^2 ({:.4}%)",
-        r.log.holes.iter().map(|h| h.boundary_length_mm).collect::<Vec<_>>(),
+        r.log
+            .holes
+            .iter()
+            .map(|h| h.boundary_length_mm)
+            .collect::<Vec<_>>(),
         100.0 * (a - a0) / a0
     );
     assert!(a < a0);
@@ -113,7 +124,10 @@ fn holed_sphere_is_closed_with_dp_and_fan() {
     let removed: f64 = full.area() - m.area();
     let filled: f64 = r.log.holes.iter().map(|h| h.area_added_mm2).sum();
     assert!((a - (m.area() + filled)).abs() < 1e-6 * a);
-    assert!(filled < removed && filled > 0.98 * removed, "{filled} vs {removed}");
+    assert!(
+        filled < removed && filled > 0.98 * removed,
+        "{filled} vs {removed}"
+    );
     // Exactly one created vertex: the fan centre, masked and listed, on the
     // axis of the large cap.
     let n = r.mesh.n_vertices();
@@ -375,7 +389,10 @@ fn bowtie_vertex_is_split() {
     assert!(Halfedges::from_faces(m.n_vertices(), &m.faces).is_err());
     let r = repair(&m, &RepairOptions::default()).unwrap();
     check_closed_outward(&r);
-    assert_eq!(r.log.bowtie_splits, vec![BowtieSplit { vertex: 0, fans: 2 }]);
+    assert_eq!(
+        r.log.bowtie_splits,
+        vec![BowtieSplit { vertex: 0, fans: 2 }]
+    );
     assert_eq!(r.log.euler_characteristic, 2);
     let n = r.mesh.n_vertices();
     assert_eq!(n, full.n_vertices());
@@ -460,7 +477,7 @@ fn existing_edges_are_not_reused_by_a_fill() {
         [0.0, 10.0, 0.0],
         [5.0, 5.0, 40.0],
     ];
-    let pyramid = vec![
+    let pyramid = [
         [a, b, e],
         [b, c, e],
         [c, d, e],

@@ -76,7 +76,13 @@ pub fn weld(positions: &[Vec3], tol: f64) -> Result<Vec<u32>> {
 
 fn weld_exact(positions: &[Vec3]) -> Vec<u32> {
     // `x + 0.0` turns -0.0 into +0.0, so the two zeros share a key.
-    let key = |p: Vec3| [(p[0] + 0.0).to_bits(), (p[1] + 0.0).to_bits(), (p[2] + 0.0).to_bits()];
+    let key = |p: Vec3| {
+        [
+            (p[0] + 0.0).to_bits(),
+            (p[1] + 0.0).to_bits(),
+            (p[2] + 0.0).to_bits(),
+        ]
+    };
     let mut seen: HashMap<[u64; 3], u32> = HashMap::with_capacity(positions.len());
     positions
         .iter()
