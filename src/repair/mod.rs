@@ -66,6 +66,7 @@ pub struct RepairOptions {
     pub merge_tolerance_mm: f64,
     /// Holes with at most this many boundary edges are triangulated by the
     /// O(n^3) dynamic programme; larger ones get a fan around a new vertex.
+    /// At most 2000 (the programme keeps two n-by-n tables).
     pub max_dp_hole_edges: usize,
     /// Weight of the dynamic programme.
     pub hole_weight: HoleWeight,
@@ -199,9 +200,9 @@ const NEW_FACE: u32 = u32::MAX;
 /// Repair `mesh`; see the module documentation for the steps.
 pub fn repair(mesh: &TriMesh, opts: &RepairOptions) -> Result<Repaired> {
     mesh.validate()?;
-    if opts.max_dp_hole_edges > 5000 {
+    if opts.max_dp_hole_edges > 2000 {
         return Err(Error::Invalid(format!(
-            "max_dp_hole_edges {}: expected at most 5000 (the search takes O(n^3) time and O(n^2) memory)",
+            "max_dp_hole_edges {}: expected at most 2000 (the search takes O(n^3) time and O(n^2) memory)",
             opts.max_dp_hole_edges
         )));
     }

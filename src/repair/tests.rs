@@ -513,3 +513,14 @@ fn existing_edges_are_not_reused_by_a_fill() {
         assert_eq!(got, want, "{weight:?}");
     }
 }
+
+#[test]
+fn dp_limit_above_the_cap_is_refused() {
+    let m = icosphere(1, 1.0);
+    let opts = RepairOptions {
+        max_dp_hole_edges: 2001,
+        ..Default::default()
+    };
+    let e = repair(&m, &opts).unwrap_err();
+    assert!(e.to_string().contains("at most 2000"), "{e}");
+}
