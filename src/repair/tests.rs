@@ -603,3 +603,42 @@ fn random_defect_combinations() {
     eprintln!("random defects: {ok} repaired, {refused} refused");
     assert!(ok > 100, "{ok} repaired, {refused} refused");
 }
+
+#[test]
+fn torus_keeps_its_handle_and_moebius_strip_is_refused() {
+    // A holed torus is closed again with genus 1 (Euler characteristic 0,
+    // Massey 1991); handles are the mapper's business, not repair's.
+    let t = crate::mesh::shapes::torus(30.0, 10.0, 48, 24);
+    let mut m = t.clone();
+    m.faces.drain(100..104);
+    let r = repair(&m, &RepairOptions::default()).unwrap();
+    check_closed_outward(&r);
+    assert_eq!(r.log.holes.len(), 1);
+    assert_eq!(r.log.euler_characteristic, 0);
+    assert_eq!(r.log.genus, 1);
+    // Moebius strip: refused as not orientable.
+    let n = 12u32;
+    let mut positions = Vec::new();
+    for i in 0..n {
+        let u = std::f64::consts::TAU * i as f64 / n as f64;
+        for s in [-1.0, 1.0] {
+            let w = 5.0 * s;
+            let r = 30.0 + w * (u / 2.0).cos();
+            positions.push([r * u.cos(), r * u.sin(), w * (u / 2.0).sin()]);
+        }
+    }
+    let mut faces = Vec::new();
+    for i in 0..n {
+        let (a, b) = (2 * i, 2 * i + 1);
+        let (c, d) = if i + 1 == n {
+            (1, 0)
+        } else {
+            (2 * i + 2, 2 * i + 3)
+        };
+        faces.push([a, c, b]);
+        faces.push([b, c, d]);
+    }
+    let e = repair(&TriMesh { positions, faces }, &RepairOptions::default()).unwrap_err();
+    assert!(matches!(e, Error::NotReady(_)), "{e}");
+    assert!(e.to_string().contains("not orientable"), "{e}");
+}
