@@ -34,8 +34,8 @@ pub enum Degeneracy {
 /// area when twice its area, `|(b - a) x (c - a)|`, is at most
 /// `16 eps L (L + M)`, with `L` its longest edge, `M` the largest absolute
 /// coordinate of its corners and `eps` the machine epsilon: the size of the
-/// rounding error of the cross product, so exactly collinear points computed
-/// in floating point are caught and nothing else is.
+/// rounding error of the cross product, so points collinear up to rounding
+/// are caught while a thin but real sliver (height 1e-9 of its length) is kept.
 pub fn degeneracy(positions: &[Vec3], t: [u32; 3]) -> Option<Degeneracy> {
     if t[0] == t[1] || t[1] == t[2] || t[2] == t[0] {
         return Some(Degeneracy::RepeatedVertex);
