@@ -465,6 +465,14 @@ pub fn repair(mesh: &TriMesh, opts: &RepairOptions) -> Result<Repaired> {
     // 7. Outward.
     let closed = TriMesh { positions, faces };
     let volume = closed.signed_volume();
+    // A flat closed surface (a sheet closed by a fill lying on it) encloses
+    // no volume: outward is undefined. Rounding leaves about eps * A^(3/2).
+    let area = closed.area();
+    if volume.abs() <= 1e-9 * area * area.sqrt() {
+        return Err(Error::NotReady(format!(
+            "the closed-up surface encloses no volume ({volume:e} mm^3 for {area:.6} mm^2 of area):              it is flat, so outward cannot be told from inward"
+        )));
+    }
     let mut closed = closed;
     if volume < 0.0 {
         for t in &mut closed.faces {
