@@ -39,7 +39,8 @@
 //! Everything is sequential and deterministic.
 //!
 //! Limits: non-manifold edges are refused rather than cut apart; a
-//! non-orientable surface is refused. A zero-area face inside an otherwise
+//! non-orientable surface is refused; so is a flat one (a sheet whose
+//! closed-up surface encloses no volume, so outward is undefined). A zero-area face inside an otherwise
 //! closed surface leaves a three-edge hole whose only triangulation is that
 //! same flat triangle, so the log shows the face dropped and a three-edge hole
 //! filled; removing such slivers by edge collapse is not done here. Handles
