@@ -18,5 +18,11 @@
 pub mod rng;
 pub mod sphere;
 pub mod surface;
+pub mod maps;
+pub mod defects;
+pub mod cohort;
 
 pub use surface::{folded_surface, FoldField, FoldedSurface, Hemi, SurfaceParams};
+
+#[cfg(test)]
+mod tests;

@@ -167,7 +167,7 @@ impl SurfaceParams {
             return bad("medial cut", self.medial_cut.to_string(), "0.3 to 1");
         }
         let min_axis = self.semi_axes.iter().copied().fold(f64::INFINITY, f64::min);
-        let deepest = self.primary_depth[1].max(self.secondary_depth[1]);
+        let deepest = self.primary_depth[1].max(self.secondary_depth[1]).min(DEPTH_CAP);
         let ranges = [
             ("primary depth", self.primary_depth),
             ("primary length", self.primary_length),
@@ -265,6 +265,11 @@ pub struct Network {
 
 /// Softness of the medial flattening (mm).
 const MEDIAL_SOFTNESS: f64 = 3.0;
+/// Fold depth never exceeds this (mm): the deepest human sulci are a
+/// little deeper than 20 mm.
+pub const DEPTH_CAP: f64 = 25.0;
+/// Softness of the depth ceiling (mm).
+const DEPTH_CAP_SOFTNESS: f64 = 1.5;
 /// Exponent of the smooth maximum of overlapping sulci.
 const SMOOTH_MAX_P: f64 = 4.0;
 
@@ -372,7 +377,10 @@ impl FoldField {
         } else {
             best
         };
-        w * d
+        // A soft ceiling where sulci cross: smooth minimum with the cap.
+        let (lo, hi) = (d.min(DEPTH_CAP), d.max(DEPTH_CAP));
+        let capped = lo - DEPTH_CAP_SOFTNESS * (-(hi - lo) / DEPTH_CAP_SOFTNESS).exp().ln_1p();
+        w * capped.max(0.0)
     }
 
     /// The radius `r(u) = E(u) + B(u) - D(u)`.
