@@ -6,9 +6,11 @@
 //! Invariants: the mesh is closed, genus 0, one piece, outward, and free of
 //! self-intersections; the same parameters and seed give the same bits.
 //!
-//! Construction. Every vertex of the base sphere ([`super::sphere`]) is a
-//! unit direction `u` in the *canonical frame* (the left hemisphere's axes:
-//! `x` towards the midline, `y` anterior, `z` superior). Its position is
+//! Construction. Every vertex of the base sphere ([`super::sphere`]),
+//! warped towards the ellipsoid so that vertices spread evenly over it
+//! ([`warp_direction`]), is a unit direction `u` in the *canonical frame*
+//! (the left hemisphere's axes: `x` towards the midline, `y` anterior, `z`
+//! superior). Its position is
 //! `c + r(u) u` with
 //!
 //! `r(u) = E(u) + B(u) - D(u)`,
@@ -33,8 +35,13 @@
 //!   boundary has its own random depth, and a fraction of them are left out
 //!   so that neighbouring cells merge into longer, winding gyri.
 //!
+//! All distances (sulcus widths, spacings) are measured in mm between
+//! points of the unfolded, flattened ellipsoid, so folds have the same
+//! width everywhere on the elongated shape.
+//!
 //! Why no self-intersections: the faces of the base sphere tile it as
-//! spherical triangles, so the cones from the centre over the faces meet
+//! spherical triangles (and still do after the warp, a positive diagonal
+//! map followed by normalisation), so the cones from the centre over the faces meet
 //! only along shared edges; a face displaced radially with positive radii
 //! stays inside its own cone, so two faces can only meet where their cones
 //! do, at shared vertices and edges. The right hemisphere is the mirror
@@ -210,9 +217,12 @@ impl SurfaceParams {
     }
 }
 
-/// One sulcus: an arc of the circle `{u : u . pole = cos(rho)}`, from angle
-/// `-half_span` to `half_span` about the pole measured from `e1` towards
-/// `e2` (`pole, e1, e2` orthonormal, right-handed).
+/// One primary sulcus: an arc of the circle `{u : u . pole = cos(rho)}`
+/// on the sphere of directions, from angle `-half_span` to `half_span`
+/// about the pole measured from `e1` towards `e2` (`pole, e1, e2`
+/// orthonormal, right-handed), carried to the unfolded envelope as the
+/// polyline `path` (mm, relative to the centre). Distances to it are
+/// measured in mm in space, so its width is the same everywhere.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Sulcus {
     pub pole: Vec3,
@@ -226,11 +236,24 @@ pub struct Sulcus {
     pub depth: f64,
     /// Half-width of the profile, mm.
     pub half_width: f64,
-    /// Length along the envelope, mm (approximate).
+    /// The arc on the envelope (mm from the centre), about 2 mm steps.
+    #[serde(skip)]
+    pub path: Vec<Vec3>,
+    /// Arc length at each point of `path`, mm.
+    #[serde(skip)]
+    pub along: Vec<f64>,
+    /// Length along the envelope, mm.
     pub length: f64,
-    /// From the shared template.
-    pub primary: bool,
+    /// A ball holding `path`: centre and radius (mm).
+    #[serde(skip)]
+    pub bound: (Vec3, f64),
+    /// Balls holding runs of [`CHUNK`] segments: (first point, centre, radius).
+    #[serde(skip)]
+    pub chunks: Vec<(usize, Vec3, f64)>,
 }
+
+/// Segments per bounding ball of a sulcus path.
+const CHUNK: usize = 8;
 
 /// A broad bump `amplitude * exp(kappa (u . centre - 1))` in mm.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -252,10 +275,10 @@ pub struct FoldField {
     pub bumps: Vec<Bump>,
 }
 
-/// The secondary sulci: boundaries of the spherical Voronoi cells of
-/// `seeds`. `neighbours[i]` lists `(j, depth)` for the seeds `j` near seed
-/// `i` and the depth of the sulcus between them (0: none); the list is
-/// symmetric.
+/// The secondary sulci: boundaries of the Voronoi cells of the seed points
+/// `seeds` (on the unfolded envelope, mm from the centre). `neighbours[i]`
+/// lists `(j, depth)` for the seeds `j` near seed `i` and the depth of the
+/// sulcus between them (0: none); the list is symmetric.
 #[derive(Debug, Clone, PartialEq, Serialize, Default)]
 pub struct Network {
     pub seeds: Vec<Vec3>,
@@ -272,12 +295,67 @@ pub const DEPTH_CAP: f64 = 25.0;
 const DEPTH_CAP_SOFTNESS: f64 = 1.5;
 /// Exponent of the smooth maximum of overlapping sulci.
 const SMOOTH_MAX_P: f64 = 4.0;
+/// Length over which a primary sulcus tapers in at each end (mm).
+const END_RAMP: f64 = 10.0;
+/// Exponent of the warp of the base sphere towards the ellipsoid (see
+/// [`warp_direction`]).
+pub const WARP_POWER: f64 = 0.6;
 
 /// `0` below `a`, `1` above `b`, cubic in between.
 #[inline]
 pub(crate) fn smoothstep(a: f64, b: f64, x: f64) -> f64 {
     let t = ((x - a) / (b - a)).clamp(0.0, 1.0);
     t * t * (3.0 - 2.0 * t)
+}
+
+/// Smooth minimum `-k ln(exp(-a/k) + exp(-b/k))`.
+#[inline]
+fn soft_min(a: f64, b: f64, k: f64) -> f64 {
+    let (lo, hi) = (a.min(b), a.max(b));
+    lo - k * (-(hi - lo) / k).exp().ln_1p()
+}
+
+/// Warp a direction of the uniform base sphere so that vertices spread
+/// about evenly over the elongated envelope: `u -> normalise(u * s^p)`
+/// componentwise, `s` the semi-axes, `p` = [`WARP_POWER`]. (`p = 0` keeps
+/// the directions, whose density on an ellipsoid of semi-axes 35, 80, 55
+/// mm varies five-fold; `p = 1` is the affine map, which spreads areas
+/// better but stretches triangles up to 2.3 times; 0.6 keeps the area
+/// ratio between the 5th and 95th percentile under 1.6 and shapes near
+/// equilateral, as measured on 20k-point sets.) A positive diagonal map
+/// keeps every face's orientation about the centre.
+pub fn warp_direction(u: Vec3, semi_axes: [f64; 3]) -> Vec3 {
+    let s = semi_axes.map(|a| a.powf(WARP_POWER));
+    unit([u[0] * s[0], u[1] * s[1], u[2] * s[2]])
+}
+
+/// Nearest point of a sulcus path to `p` if nearer than `cutoff`:
+/// (distance, arc length there); runs of segments whose bounding ball is
+/// farther are skipped.
+fn polyline_distance(s: &Sulcus, p: Vec3, cutoff: f64) -> (f64, f64) {
+    let (path, along) = (&s.path, &s.along);
+    let mut best = (cutoff, 0.0);
+    for &(first, c, r) in &s.chunks {
+        if norm(sub(p, c)) - r >= best.0 {
+            continue;
+        }
+        for k in first + 1..(first + CHUNK + 1).min(path.len()) {
+        let (a, b) = (path[k - 1], path[k]);
+        let ab = sub(b, a);
+        let l2 = dot(ab, ab);
+        let t = if l2 > 0.0 {
+            (dot(sub(p, a), ab) / l2).clamp(0.0, 1.0)
+        } else {
+            0.0
+        };
+        let q = add(a, scale(ab, t));
+        let d = norm(sub(p, q));
+        if d < best.0 {
+            best = (d, along[k - 1] + t * (along[k] - along[k - 1]));
+        }
+        }
+    }
+    best
 }
 
 impl FoldField {
@@ -289,10 +367,13 @@ impl FoldField {
         if u[0] <= 1e-9 {
             return re;
         }
-        let rp = self.medial_plane / u[0];
-        // Smooth minimum: -k ln(exp(-re/k) + exp(-rp/k)).
-        let (lo, hi) = (re.min(rp), re.max(rp));
-        lo - MEDIAL_SOFTNESS * (-(hi - lo) / MEDIAL_SOFTNESS).exp().ln_1p()
+        soft_min(re, self.medial_plane / u[0], MEDIAL_SOFTNESS)
+    }
+
+    /// Point of the flattened ellipsoid (no bumps, no folds) in direction
+    /// `u`, mm from the centre: where sulcus distances are measured.
+    pub fn base_point(&self, u: Vec3) -> Vec3 {
+        scale(u, self.ellipsoid_radius(u))
     }
 
     /// The envelope `E(u) + B(u)`: the surface without its folds.
@@ -305,7 +386,8 @@ impl FoldField {
         self.ellipsoid_radius(u) + Self::fold_weight(u) * b
     }
 
-    /// Weight of sulci by direction: 0 on the medial wall, 1 elsewhere.
+    /// Weight of folds and bumps by direction: 0 on the medial wall, 1
+    /// elsewhere.
     pub fn fold_weight(u: Vec3) -> f64 {
         1.0 - smoothstep(0.45, 0.7, u[0])
     }
@@ -316,60 +398,46 @@ impl FoldField {
         if w <= 0.0 {
             return 0.0;
         }
-        let r = self.ellipsoid_radius(u);
+        let p = self.base_point(u);
         let mut acc = 0.0;
         let mut best = 0.0f64;
         let mut hits = 0;
-        for s in &self.sulci {
-            let cos_rho = s.rho.cos();
-            let c = dot(u, s.pole);
-            // |cos(rho + delta) - cos(rho)| <= |delta|: cheap rejection.
-            let reach = s.half_width / r;
-            if (c - cos_rho).abs() > reach {
-                continue;
-            }
-            let delta = c.clamp(-1.0, 1.0).acos() - s.rho;
-            let d = delta.abs() * r;
-            if d >= s.half_width {
-                continue;
-            }
-            let theta = dot(u, s.e2).atan2(dot(u, s.e1));
-            if theta.abs() >= s.half_span {
-                continue;
-            }
-            let t = 0.5 * (theta / s.half_span + 1.0);
-            let ramp = (10.0 / s.length.max(1.0)).min(0.45);
-            let along = smoothstep(0.0, ramp, t) * smoothstep(0.0, ramp, 1.0 - t);
-            let x = d / s.half_width;
-            let across = (1.0 - x * x).powi(2);
-            let v = s.depth * along * across;
+        let mut take = |v: f64| {
             if v > 0.0 {
                 acc += v.powf(SMOOTH_MAX_P);
                 best = best.max(v);
                 hits += 1;
             }
+        };
+        for s in &self.sulci {
+            if norm(sub(p, s.bound.0)) > s.bound.1 + s.half_width {
+                continue;
+            }
+            let (d, at) = polyline_distance(s, p, s.half_width);
+            if d >= s.half_width {
+                continue;
+            }
+            let ends = smoothstep(0.0, END_RAMP, at) * smoothstep(0.0, END_RAMP, s.length - at);
+            let x = d / s.half_width;
+            take(s.depth * ends * (1.0 - x * x).powi(2));
         }
         // The secondary network: nearest seed i, then every neighbour j.
-        if let Some((i, ci)) = nearest_seed(&self.network.seeds, u) {
-            let ti = ci.clamp(-1.0, 1.0).acos();
-            let w = self.network.half_width;
-            for &(j, dep) in &self.network.neighbours[i] {
+        let net = &self.network;
+        if let Some((i, di)) = nearest_seed(&net.seeds, p) {
+            let w = net.half_width;
+            for &(j, dep) in &net.neighbours[i] {
                 if dep <= 0.0 {
                     continue;
                 }
-                let Some(sj) = self.network.seeds.get(j as usize) else {
+                let Some(sj) = net.seeds.get(j as usize) else {
                     continue;
                 };
-                let tj = dot(u, *sj).clamp(-1.0, 1.0).acos();
-                let d = 0.5 * (tj - ti) * r;
+                let d = 0.5 * (norm(sub(p, *sj)) - di);
                 if d >= w {
                     continue;
                 }
                 let x = d / w;
-                let v = dep * (1.0 - x * x).powi(2);
-                acc += v.powf(SMOOTH_MAX_P);
-                best = best.max(v);
-                hits += 1;
+                take(dep * (1.0 - x * x).powi(2));
             }
         }
         let d = if hits > 1 {
@@ -377,10 +445,8 @@ impl FoldField {
         } else {
             best
         };
-        // A soft ceiling where sulci cross: smooth minimum with the cap.
-        let (lo, hi) = (d.min(DEPTH_CAP), d.max(DEPTH_CAP));
-        let capped = lo - DEPTH_CAP_SOFTNESS * (-(hi - lo) / DEPTH_CAP_SOFTNESS).exp().ln_1p();
-        w * capped.max(0.0)
+        // A soft ceiling where sulci cross.
+        w * soft_min(d, DEPTH_CAP, DEPTH_CAP_SOFTNESS).max(0.0)
     }
 
     /// The radius `r(u) = E(u) + B(u) - D(u)`.
@@ -394,7 +460,7 @@ impl FoldField {
 pub struct FoldedSurface {
     /// The surface in world millimetres (RAS+), outward faces.
     pub mesh: TriMesh,
-    /// Unit direction of each vertex on the base sphere, canonical frame.
+    /// Unit direction of each vertex from the centre, canonical frame.
     pub directions: Vec<Vec3>,
     /// Fold depth of each vertex (mm below the envelope), `>= 0`.
     pub depth: Vec<f64>,
@@ -425,17 +491,22 @@ impl FoldedSurface {
     }
 }
 
-/// Index and cosine of the seed nearest to `u` (largest dot product; the
-/// lowest index wins a tie).
-fn nearest_seed(seeds: &[Vec3], u: Vec3) -> Option<(usize, f64)> {
+/// Index and distance of the seed nearest to `p` (lowest index on ties).
+fn nearest_seed(seeds: &[Vec3], p: Vec3) -> Option<(usize, f64)> {
     let mut best: Option<(usize, f64)> = None;
     for (i, s) in seeds.iter().enumerate() {
-        let c = dot(u, *s);
-        if best.is_none_or(|(_, b)| c > b) {
-            best = Some((i, c));
+        let d = sub(p, *s);
+        let d2 = dot(d, d);
+        if best.is_none_or(|(_, b)| d2 < b) {
+            best = Some((i, d2));
         }
     }
-    best
+    best.map(|(i, d2)| (i, d2.sqrt()))
+}
+
+/// A random direction, spread about evenly over the envelope.
+fn random_envelope_direction(rng: &mut Rng, field: &FoldField) -> Vec3 {
+    warp_direction(rng.unit_vector(), field.semi_axes)
 }
 
 /// Seeds by dart throwing (at least `spacing` mm apart on the envelope)
@@ -450,11 +521,10 @@ fn secondary_network(
 ) -> Network {
     let mut seeds: Vec<Vec3> = Vec::new();
     let mut misses = 0;
+    let s2 = spacing * spacing;
     while misses < 2_000 {
-        let q = rng.unit_vector();
-        let r = field.ellipsoid_radius(q);
-        let lim = 1.0 - 0.5 * (spacing / r).powi(2);
-        if seeds.iter().all(|p| dot(*p, q) < lim) {
+        let q = field.base_point(random_envelope_direction(rng, field));
+        if seeds.iter().all(|p| dot(sub(*p, q), sub(*p, q)) >= s2) {
             seeds.push(q);
             misses = 0;
         } else {
@@ -463,18 +533,18 @@ fn secondary_network(
     }
     let n = seeds.len();
     let mut neighbours: Vec<Vec<(u32, f64)>> = vec![Vec::new(); n];
+    let reach2 = (3.0 * spacing).powi(2);
     for i in 0..n {
         for j in i + 1..n {
-            let r = field.ellipsoid_radius(seeds[i]).max(field.ellipsoid_radius(seeds[j]));
-            let lim = 1.0 - 0.5 * (3.0 * spacing / r).powi(2);
-            if dot(seeds[i], seeds[j]) > lim {
-                let d = if rng.uniform() < dropout {
+            let d = sub(seeds[i], seeds[j]);
+            if dot(d, d) < reach2 {
+                let dep = if rng.uniform() < dropout {
                     0.0
                 } else {
                     rng.range(depth[0], depth[1])
                 };
-                neighbours[i].push((j as u32, d));
-                neighbours[j].push((i as u32, d));
+                neighbours[i].push((j as u32, dep));
+                neighbours[j].push((i as u32, dep));
             }
         }
     }
@@ -491,26 +561,48 @@ pub fn hemisphere_centre(params: &SurfaceParams) -> Vec3 {
     params.hemi.to_world([x, params.centre_yz[0], params.centre_yz[1]])
 }
 
-/// Sample points of a sulcus, about `step` mm apart: (direction, envelope radius).
-fn sulcus_points(s: &Sulcus, field: &FoldField, step: f64) -> Vec<Vec3> {
-    let n = ((s.length / step).ceil() as usize).max(2);
-    (0..=n)
-        .map(|i| {
-            let th = -s.half_span + 2.0 * s.half_span * i as f64 / n as f64;
-            let _ = field;
-            arc_point(s, th)
-        })
-        .collect()
+/// Point of the circle of `s` at angle `theta` (unit direction).
+fn arc_point(pole: Vec3, e1: Vec3, e2: Vec3, rho: f64, theta: f64) -> Vec3 {
+    let (sr, cr) = rho.sin_cos();
+    let (st, ct) = theta.sin_cos();
+    unit(add(scale(pole, cr), scale(add(scale(e1, ct), scale(e2, st)), sr)))
 }
 
-/// Point of the sulcus circle at angle `theta`.
-fn arc_point(s: &Sulcus, theta: f64) -> Vec3 {
-    let (sr, cr) = s.rho.sin_cos();
-    let (st, ct) = theta.sin_cos();
-    unit(add(
-        scale(s.pole, cr),
-        scale(add(scale(s.e1, ct), scale(s.e2, st)), sr),
-    ))
+/// Build `path`, `along`, `length` and `bound` of a sulcus from its circle.
+fn trace(s: &mut Sulcus, field: &FoldField) {
+    let r = field.ellipsoid_radius(s.e1);
+    let approx = 2.0 * s.half_span * r * s.rho.sin();
+    let n = ((approx / 2.0).ceil() as usize).clamp(4, 400);
+    s.path = (0..=n)
+        .map(|i| {
+            let th = -s.half_span + 2.0 * s.half_span * i as f64 / n as f64;
+            field.base_point(arc_point(s.pole, s.e1, s.e2, s.rho, th))
+        })
+        .collect();
+    s.along = Vec::with_capacity(s.path.len());
+    let mut acc = 0.0;
+    for (k, p) in s.path.iter().enumerate() {
+        if k > 0 {
+            acc += norm(sub(*p, s.path[k - 1]));
+        }
+        s.along.push(acc);
+    }
+    s.length = acc;
+    let c = scale(
+        s.path.iter().fold([0.0; 3], |a, p| add(a, *p)),
+        1.0 / s.path.len() as f64,
+    );
+    let rad = s.path.iter().map(|p| norm(sub(*p, c))).fold(0.0, f64::max);
+    s.bound = (c, rad);
+    s.chunks = (0..s.path.len().saturating_sub(1))
+        .step_by(CHUNK)
+        .map(|first| {
+            let pts = &s.path[first..(first + CHUNK + 1).min(s.path.len())];
+            let c = scale(pts.iter().fold([0.0; 3], |a, p| add(a, *p)), 1.0 / pts.len() as f64);
+            let r = pts.iter().map(|p| norm(sub(*p, c))).fold(0.0, f64::max);
+            (first, c, r)
+        })
+        .collect();
 }
 
 /// A random sulcus centred at a random lateral direction.
@@ -520,10 +612,9 @@ fn random_sulcus(
     depth: [f64; 2],
     length: [f64; 2],
     half_width: f64,
-    primary: bool,
 ) -> Sulcus {
     let c = loop {
-        let c = rng.unit_vector();
+        let c = random_envelope_direction(rng, field);
         if FoldField::fold_weight(c) > 0.9 {
             break c;
         }
@@ -540,7 +631,7 @@ fn random_sulcus(
     let len = rng.range(length[0], length[1]);
     let r = field.ellipsoid_radius(c);
     let half_span = (0.5 * len / (r * rho.sin())).min(0.9 * std::f64::consts::PI);
-    Sulcus {
+    let mut s = Sulcus {
         pole,
         e1,
         e2,
@@ -548,9 +639,14 @@ fn random_sulcus(
         half_span,
         depth: rng.range(depth[0], depth[1]),
         half_width: half_width * rng.range(0.8, 1.2),
-        length: 2.0 * half_span * r * rho.sin(),
-        primary,
-    }
+        path: Vec::new(),
+        along: Vec::new(),
+        length: 0.0,
+        bound: ([0.0; 3], 0.0),
+        chunks: Vec::new(),
+    };
+    trace(&mut s, field);
+    s
 }
 
 fn unit_or(v: Vec3, fallback: Vec3) -> Vec3 {
@@ -572,56 +668,38 @@ fn perpendicular(c: Vec3) -> Vec3 {
     unit(cross(c, a))
 }
 
-/// Place sulci by rejection sampling: a candidate is kept when all its
-/// sample points are at least `spacing` mm from those already kept.
-/// Stops at `total_length` mm, `max_count` sulci or after `attempts` tries.
-#[allow(clippy::too_many_arguments)]
-fn place_sulci(
-    rng: &mut Rng,
-    field: &FoldField,
-    kept: &mut Vec<Sulcus>,
-    depth: [f64; 2],
-    length: [f64; 2],
-    half_width: f64,
-    spacing: f64,
-    total_length: f64,
-    max_count: usize,
-    attempts: usize,
-    primary: bool,
-) {
-    let step = 0.5 * spacing;
-    let mut points: Vec<Vec3> = kept
-        .iter()
-        .flat_map(|s| sulcus_points(s, field, step))
-        .collect();
-    let mut have: f64 = kept.iter().map(|s| s.length).sum();
-    let added_at_start = kept.len();
-    for k in 0..attempts {
-        if have >= total_length || kept.len() - added_at_start >= max_count {
+/// Place up to `count` primary sulci by rejection sampling: a candidate is
+/// kept when every point of its path is at least `spacing` mm from the
+/// paths already kept and off the medial wall.
+fn place_primaries(rng: &mut Rng, field: &FoldField, params: &SurfaceParams) -> Vec<Sulcus> {
+    let mut kept: Vec<Sulcus> = Vec::new();
+    let s2 = params.sulcus_spacing.powi(2);
+    for _ in 0..200 * params.primary_sulci.max(1) {
+        if kept.len() >= params.primary_sulci {
             break;
         }
-        // Long candidates first, shorter ones later to fill the gaps
-        // (random sequential adsorption with shrinking pieces).
-        let f = k as f64 / attempts as f64;
-        let hi = length[1] + (length[0] - length[1]) * f;
-        let lo = length[0] + (0.5 * length[0] - length[0]) * f;
-        let s = random_sulcus(rng, field, depth, [lo.min(hi), hi], half_width, primary);
-        let cand = sulcus_points(&s, field, step);
-        let clear = cand.iter().all(|q| {
-            let r = field.ellipsoid_radius(*q);
-            let lim = 1.0 - 0.5 * (spacing / r).powi(2);
-            FoldField::fold_weight(*q) > 0.2 && points.iter().all(|p| dot(*p, *q) < lim)
+        let s = random_sulcus(
+            rng,
+            field,
+            params.primary_depth,
+            params.primary_length,
+            1.1 * params.sulcus_half_width,
+        );
+        let clear = s.path.iter().all(|q| {
+            FoldField::fold_weight(unit(*q)) > 0.2
+                && kept
+                    .iter()
+                    .all(|k| k.path.iter().all(|p| dot(sub(*p, *q), sub(*p, *q)) >= s2))
         });
         if clear {
-            have += s.length;
-            points.extend(cand);
             kept.push(s);
         }
     }
+    kept
 }
 
 /// The folding field of one surface: template primaries moved per subject,
-/// then subject-specific secondaries, then bumps.
+/// then the subject's secondary network, then bumps.
 pub fn fold_field(params: &SurfaceParams, seed: u64) -> FoldField {
     let mut field = FoldField {
         semi_axes: params.semi_axes,
@@ -631,21 +709,8 @@ pub fn fold_field(params: &SurfaceParams, seed: u64) -> FoldField {
         bumps: Vec::new(),
     };
     // The shared template (same for every subject of a cohort).
-    let mut template = Vec::new();
     let mut trng = Rng::stream(params.template_seed, "primary-sulci");
-    place_sulci(
-        &mut trng,
-        &field,
-        &mut template,
-        params.primary_depth,
-        params.primary_length,
-        params.sulcus_half_width * 1.1,
-        params.sulcus_spacing,
-        f64::INFINITY,
-        params.primary_sulci,
-        200 * params.primary_sulci.max(1),
-        true,
-    );
+    let template = place_primaries(&mut trng, &field, params);
     let mut rng = Rng::stream(seed, &format!("fold-{}", params.hemi.label()));
     for s in &template {
         let axis = rng.unit_vector();
@@ -656,6 +721,7 @@ pub fn fold_field(params: &SurfaceParams, seed: u64) -> FoldField {
         s.e1 = unit(mat_vec(&m, s.e1));
         s.e2 = cross(s.pole, s.e1);
         s.depth *= (1.0 + 0.1 * rng.normal()).clamp(0.7, 1.3);
+        trace(&mut s, &field);
         field.sulci.push(s);
     }
     field.network = secondary_network(
@@ -685,7 +751,11 @@ pub fn folded_surface(params: &SurfaceParams, seed: u64) -> Result<FoldedSurface
     let field = fold_field(params, seed);
     let centre = hemisphere_centre(params);
     let hemi = params.hemi;
-    let directions = sphere.positions;
+    let directions: Vec<Vec3> = sphere
+        .positions
+        .iter()
+        .map(|&u| warp_direction(u, params.semi_axes))
+        .collect();
     let radii: Vec<(f64, f64)> = directions
         .par_iter()
         .with_min_len(1024)

@@ -145,11 +145,22 @@ fn planted_effect_is_exactly_where_stated() {
             assert_eq!(a, b);
         }
     }
-    // A cap of angular radius 18 degrees holds (1 - cos 18)/2 = 2.45% of the
-    // base sphere's area; our vertices are uniform on it to within a few %.
+    // The share of vertices in the cap matches the share of uniformly random
+    // points of the sphere whose warped direction falls in it (Monte Carlo,
+    // 200k points: standard error under 1% of the share), to within the
+    // density variation of the geodesic sphere: its flat-then-normalised
+    // points are denser near the icosahedron's corners than at its face
+    // centres by up to the gnomonic factor 1/cos^3(37.4 deg) = 2, so a cap
+    // of this size may hold up to about a third more or fewer.
     let frac = inside as f64 / s.directions.len() as f64;
-    let want = (1.0 - 18f64.to_radians().cos()) / 2.0;
-    assert!((frac / want - 1.0).abs() < 0.1, "{frac} vs {want}");
+    let mut rng = Rng::new(1);
+    let axes = SurfaceParams::default().semi_axes;
+    let hits = (0..200_000)
+        .filter(|_| effect.contains(warp_direction(rng.unit_vector(), axes)))
+        .count();
+    let want = hits as f64 / 200_000.0;
+    assert!((frac / want - 1.0).abs() < 0.35, "{frac} vs {want}");
+    assert!(want > 0.01, "{want}");
 }
 
 #[test]
