@@ -298,7 +298,12 @@ impl ParityUnionFind {
 /// Corner of face `f` at the start (`end = false`) or end of side `slot`.
 #[inline]
 fn corner(f: u32, slot: u8, end: bool) -> u32 {
-    3 * f + if end { (slot as u32 + 1) % 3 } else { slot as u32 }
+    3 * f
+        + if end {
+            (slot as u32 + 1) % 3
+        } else {
+            slot as u32
+        }
 }
 
 /// Directed boundary walks: `(vertices, edges as (a, b), closed)`.
@@ -513,9 +518,8 @@ pub fn inspect(mesh: &TriMesh, opts: &InspectOptions) -> Result<Inspection> {
             fans[v as usize] += 1;
         }
     }
-    let non_manifold_vertices: Vec<u32> = (0..nv as u32)
-        .filter(|&v| fans[v as usize] > 1)
-        .collect();
+    let non_manifold_vertices: Vec<u32> =
+        (0..nv as u32).filter(|&v| fans[v as usize] > 1).collect();
     for &v in &non_manifold_vertices {
         comp_nm[vertex_comp[v as usize] as usize] = true;
     }
@@ -538,7 +542,12 @@ pub fn inspect(mesh: &TriMesh, opts: &InspectOptions) -> Result<Inspection> {
                 edges: w.sides.len(),
                 length_mm,
                 closed: w.closed,
-                vertices: w.sides.iter().take(LOOP_VERTICES_LISTED).map(|s| s.0).collect(),
+                vertices: w
+                    .sides
+                    .iter()
+                    .take(LOOP_VERTICES_LISTED)
+                    .map(|s| s.0)
+                    .collect(),
             }
         })
         .collect();
@@ -599,16 +608,16 @@ pub fn inspect(mesh: &TriMesh, opts: &InspectOptions) -> Result<Inspection> {
                 .then_some((twice_g / 2) as u32);
             let closed = comp_loops[c] == 0;
             let vol = comp_volume[c];
-            let orientation = if closed && manifold && !comp_inconsistent[c] && vol.abs() > volume_floor
-            {
-                if vol > 0.0 {
-                    Orientation::Outward
+            let orientation =
+                if closed && manifold && !comp_inconsistent[c] && vol.abs() > volume_floor {
+                    if vol > 0.0 {
+                        Orientation::Outward
+                    } else {
+                        Orientation::Inward
+                    }
                 } else {
-                    Orientation::Inward
-                }
-            } else {
-                Orientation::Undetermined
-            };
+                    Orientation::Undetermined
+                };
             ComponentInfo {
                 index: c,
                 vertices: comp_vertices[c],
@@ -815,7 +824,10 @@ fn fmt_pairs(p: &[[u32; 2]]) -> String {
 }
 
 fn fmt_list(p: &[u32]) -> String {
-    p.iter().map(|v| v.to_string()).collect::<Vec<_>>().join(" ")
+    p.iter()
+        .map(|v| v.to_string())
+        .collect::<Vec<_>>()
+        .join(" ")
 }
 
 fn orientation_word(o: Orientation) -> &'static str {
@@ -851,14 +863,22 @@ pub fn render_text(r: &Inspection, title: &str) -> String {
             c.euler_characteristic,
             genus,
             c.boundary_loops,
-            if c.manifold { "manifold" } else { "NON-MANIFOLD" },
+            if c.manifold {
+                "manifold"
+            } else {
+                "NON-MANIFOLD"
+            },
             if c.orientable { "" } else { ", non-orientable" },
             orientation_word(c.orientation),
             c.area_mm2
         );
     }
     if r.components.count > r.components.listed.len() {
-        let _ = writeln!(s, "  ... {} more", r.components.count - r.components.listed.len());
+        let _ = writeln!(
+            s,
+            "  ... {} more",
+            r.components.count - r.components.listed.len()
+        );
     }
     if r.boundary.loops == 0 {
         let _ = writeln!(s, "boundary     none (closed)");
@@ -877,7 +897,11 @@ pub fn render_text(r: &Inspection, title: &str) -> String {
                 l.length_mm,
                 if l.closed { "" } else { " (not closed)" },
                 fmt_list(&l.vertices),
-                if l.edges > l.vertices.len() { " ..." } else { "" }
+                if l.edges > l.vertices.len() {
+                    " ..."
+                } else {
+                    ""
+                }
             );
         }
     }
@@ -890,17 +914,47 @@ pub fn render_text(r: &Inspection, title: &str) -> String {
         }
     };
     let x = &r.non_manifold_edges;
-    check("non-manifold edges", x.count, fmt_pairs(&x.listed), x.listed.len());
+    check(
+        "non-manifold edges",
+        x.count,
+        fmt_pairs(&x.listed),
+        x.listed.len(),
+    );
     let x = &r.non_manifold_vertices;
-    check("non-manifold vertices", x.count, fmt_list(&x.listed), x.listed.len());
+    check(
+        "non-manifold vertices",
+        x.count,
+        fmt_list(&x.listed),
+        x.listed.len(),
+    );
     let x = &r.inconsistent_edges;
-    check("flipped edges", x.count, fmt_pairs(&x.listed), x.listed.len());
+    check(
+        "flipped edges",
+        x.count,
+        fmt_pairs(&x.listed),
+        x.listed.len(),
+    );
     let x = &r.degenerate_faces;
-    check("degenerate faces", x.count, fmt_list(&x.listed), x.listed.len());
+    check(
+        "degenerate faces",
+        x.count,
+        fmt_list(&x.listed),
+        x.listed.len(),
+    );
     let x = &r.duplicate_vertices;
-    check("duplicate vertices", x.count, fmt_pairs(&x.listed), x.listed.len());
+    check(
+        "duplicate vertices",
+        x.count,
+        fmt_pairs(&x.listed),
+        x.listed.len(),
+    );
     let x = &r.unreferenced_vertices;
-    check("unused vertices", x.count, fmt_list(&x.listed), x.listed.len());
+    check(
+        "unused vertices",
+        x.count,
+        fmt_list(&x.listed),
+        x.listed.len(),
+    );
     let _ = writeln!(s, "orientation  {}", orientation_word(r.orientation));
     let _ = writeln!(s, "area         {:.3} mm2", r.area_mm2);
     match r.enclosed_volume_mm3 {

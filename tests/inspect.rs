@@ -121,7 +121,10 @@ fn icosahedron_area_volume_and_counts() {
     assert_eq!((r.vertices, r.edges, r.faces), (12, 30, 20));
     assert!(rel(r.area_mm2, 5.0 * 3f64.sqrt() * a * a) < 1e-13);
     let v = r.enclosed_volume_mm3.unwrap();
-    assert!(rel(v, 5.0 / 12.0 * (3.0 + 5f64.sqrt()) * a.powi(3)) < 1e-13, "{v}");
+    assert!(
+        rel(v, 5.0 / 12.0 * (3.0 + 5f64.sqrt()) * a.powi(3)) < 1e-13,
+        "{v}"
+    );
     assert!(r.ready_to_map, "{:?}", r.reasons);
 }
 
@@ -134,7 +137,10 @@ fn icosphere_is_a_ready_genus_zero_sphere() {
     assert_eq!(r.euler_characteristic, 2);
     assert_eq!(r.components.count, 1);
     let c = &r.components.listed[0];
-    assert_eq!((c.euler_characteristic, c.genus, c.closed), (2, Some(0), true));
+    assert_eq!(
+        (c.euler_characteristic, c.genus, c.closed),
+        (2, Some(0), true)
+    );
     assert!(c.manifold && c.orientable);
     assert_eq!(r.orientation, Orientation::Outward);
     assert!(r.ready_to_map && r.reasons.is_empty(), "{:?}", r.reasons);
@@ -146,7 +152,10 @@ fn icosphere_is_a_ready_genus_zero_sphere() {
     assert!(r.area_mm2 < 4.0 * PI * 2500.0 && rel(r.area_mm2, 4.0 * PI * 2500.0) < 0.015);
     assert!(r.bounding_box.max.iter().all(|&x| x <= 50.0 && x > 49.0));
     let text = render_text(&r, "sphere.obj");
-    assert!(text.contains("ready to map") && !text.contains("NOT"), "{text}");
+    assert!(
+        text.contains("ready to map") && !text.contains("NOT"),
+        "{text}"
+    );
 }
 
 #[test]
@@ -173,7 +182,10 @@ fn double_torus_has_genus_two() {
     assert_eq!(r.euler_characteristic, -2);
     assert_eq!(r.components.count, 1);
     let c = &r.components.listed[0];
-    assert_eq!((c.euler_characteristic, c.genus, c.closed), (-2, Some(2), true));
+    assert_eq!(
+        (c.euler_characteristic, c.genus, c.closed),
+        (-2, Some(2), true)
+    );
     assert!(c.manifold && c.orientable);
     assert_eq!(r.inconsistent_edges.count, 0);
     assert_eq!(r.orientation, Orientation::Outward);
@@ -216,12 +228,19 @@ fn disk_has_one_boundary_loop_of_the_polygon_length() {
     let r = run(&disk(20.0, 6, 48));
     assert_eq!(r.euler_characteristic, 1);
     let c = &r.components.listed[0];
-    assert_eq!((c.euler_characteristic, c.genus, c.boundary_loops), (1, Some(0), 1));
+    assert_eq!(
+        (c.euler_characteristic, c.genus, c.boundary_loops),
+        (1, Some(0), 1)
+    );
     assert_eq!(r.boundary.loops, 1);
     let l = &r.boundary.listed[0];
     assert_eq!(l.edges, 48);
     assert!(l.closed);
-    assert!(rel(l.length_mm, inscribed_perimeter(20.0, 48)) < 1e-12, "{}", l.length_mm);
+    assert!(
+        rel(l.length_mm, inscribed_perimeter(20.0, 48)) < 1e-12,
+        "{}",
+        l.length_mm
+    );
     assert!(rel(r.area_mm2, 0.5 * 48.0 * 400.0 * (2.0 * PI / 48.0).sin()) < 1e-12);
     assert_eq!(r.enclosed_volume_mm3, None);
     assert_eq!(r.orientation, Orientation::Undetermined);
@@ -239,12 +258,18 @@ fn sphere_with_two_round_holes() {
     let r = run(&banded_sphere(40.0, t0, t1, 20, 96));
     assert_eq!(r.boundary.loops, 2);
     let c = &r.components.listed[0];
-    assert_eq!((c.euler_characteristic, c.genus, c.boundary_loops), (0, Some(0), 2));
+    assert_eq!(
+        (c.euler_characteristic, c.genus, c.boundary_loops),
+        (0, Some(0), 2)
+    );
     let mut lengths: Vec<f64> = r.boundary.listed.iter().map(|l| l.length_mm).collect();
     lengths.sort_by(f64::total_cmp);
     for (len, t) in lengths.iter().zip([t0, t1]) {
         let circle = 2.0 * PI * 40.0 * t.sin();
-        assert!(*len < circle && rel(*len, circle) < 3e-4, "{len} vs {circle}");
+        assert!(
+            *len < circle && rel(*len, circle) < 3e-4,
+            "{len} vs {circle}"
+        );
         assert!(rel(*len, inscribed_perimeter(40.0 * t.sin(), 96)) < 1e-12);
     }
     assert!(r.boundary.listed.iter().all(|l| l.closed && l.edges == 96));
@@ -275,7 +300,14 @@ fn icosphere_with_three_holes() {
 
 /// Two tetrahedra (outward) sharing vertex 0 only.
 fn bow_tie() -> TriMesh {
-    let tet = |o: u32| vec![[0, o + 2, o + 1], [0, o + 1, o + 3], [0, o + 3, o + 2], [o + 1, o + 2, o + 3]];
+    let tet = |o: u32| {
+        vec![
+            [0, o + 2, o + 1],
+            [0, o + 1, o + 3],
+            [0, o + 3, o + 2],
+            [o + 1, o + 2, o + 3],
+        ]
+    };
     let mut faces = tet(0);
     // The second tetrahedron is the first mirrored through the origin, so its
     // faces are reversed to stay outward.
@@ -302,14 +334,23 @@ fn bow_tie_vertex() {
     assert_eq!(r.components.count, 1, "joined through the shared vertex");
     // chi = 7 - 12 + 8 = 3: not a surface, so no genus.
     let c = &r.components.listed[0];
-    assert_eq!((c.euler_characteristic, c.genus, c.manifold), (3, None, false));
+    assert_eq!(
+        (c.euler_characteristic, c.genus, c.manifold),
+        (3, None, false)
+    );
     assert_eq!(codes(&r), vec!["non_manifold_vertex"]);
 }
 
 #[test]
 fn non_manifold_edge() {
     // Three triangles on edge 0-1; the ends of that edge are not bow-ties.
-    let pos = vec![[0.0, 0.0, 0.0], [1.0, 0.0, 0.0], [0.5, 1.0, 0.0], [0.5, -1.0, 0.0], [0.5, 0.0, 1.0]];
+    let pos = vec![
+        [0.0, 0.0, 0.0],
+        [1.0, 0.0, 0.0],
+        [0.5, 1.0, 0.0],
+        [0.5, -1.0, 0.0],
+        [0.5, 0.0, 1.0],
+    ];
     let m = TriMesh::new(pos, vec![[0, 1, 2], [1, 0, 3], [0, 1, 4]]).unwrap();
     let r = run(&m);
     assert_eq!(r.non_manifold_edges.listed, vec![[0, 1]]);
@@ -375,7 +416,11 @@ fn moebius_strip_is_not_orientable() {
     let mut faces = Vec::new();
     for i in 0..n as u32 {
         let (a, b) = (2 * i, 2 * i + 1);
-        let (c, d) = if i + 1 < n as u32 { (2 * i + 2, 2 * i + 3) } else { (1, 0) };
+        let (c, d) = if i + 1 < n as u32 {
+            (2 * i + 2, 2 * i + 3)
+        } else {
+            (1, 0)
+        };
         faces.push([a, c, d]);
         faces.push([a, d, b]);
     }
@@ -396,7 +441,8 @@ fn duplicate_vertices_exact_and_within_tolerance() {
     let mut soup = TriMesh::default();
     for t in &ico.faces {
         let k = soup.positions.len() as u32;
-        soup.positions.extend(t.iter().map(|&v| ico.positions[v as usize]));
+        soup.positions
+            .extend(t.iter().map(|&v| ico.positions[v as usize]));
         soup.faces.push([k, k + 1, k + 2]);
     }
     let r = run(&soup);
@@ -427,7 +473,12 @@ fn duplicate_vertices_exact_and_within_tolerance() {
     assert_eq!(inspect(&soup, &opts).unwrap().duplicate_vertices.count, 48);
     // -0 and +0 are the same position.
     let m = TriMesh::new(
-        vec![[0.0, 0.0, 0.0], [1.0, 0.0, 0.0], [0.0, 1.0, 0.0], [-0.0, 0.0, 0.0]],
+        vec![
+            [0.0, 0.0, 0.0],
+            [1.0, 0.0, 0.0],
+            [0.0, 1.0, 0.0],
+            [-0.0, 0.0, 0.0],
+        ],
         vec![[0, 1, 2], [3, 2, 1]],
     )
     .unwrap();
@@ -438,7 +489,8 @@ fn duplicate_vertices_exact_and_within_tolerance() {
 fn degenerate_faces() {
     let mut m = icosphere(1, 1.0);
     let n = m.n_vertices() as u32;
-    m.positions.extend([[3.0, 3.0, 3.0], [4.0, 4.0, 4.0], [5.0, 5.0, 5.0]]);
+    m.positions
+        .extend([[3.0, 3.0, 3.0], [4.0, 4.0, 4.0], [5.0, 5.0, 5.0]]);
     m.faces.push([n, n + 1, n + 2]); // collinear: zero area
     m.faces.push([0, 0, 5]); // repeated index
     let r = run(&m);
@@ -462,7 +514,8 @@ fn degenerate_faces() {
 #[test]
 fn unreferenced_vertices_and_listing_limit() {
     let mut m = icosphere(1, 1.0);
-    m.positions.extend([[9.0, 9.0, 9.0], [8.0, 8.0, 8.0], [7.0, 7.0, 7.0]]);
+    m.positions
+        .extend([[9.0, 9.0, 9.0], [8.0, 8.0, 8.0], [7.0, 7.0, 7.0]]);
     let opts = InspectOptions {
         max_listed: 2,
         ..InspectOptions::default()
@@ -505,19 +558,34 @@ fn command_line_json_text_and_status() {
     let sphere = dir.join("sphere.obj");
     horosphere::io::write_mesh(&sphere, &icosphere(2, 30.0)).unwrap();
     let out = horosphere(&["inspect".as_ref(), sphere.as_os_str(), "--json".as_ref()]);
-    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
     let r: Inspection = serde_json::from_slice(&out.stdout).unwrap();
     assert!(r.ready_to_map);
     assert_eq!((r.vertices, r.edges, r.faces), (162, 480, 320));
-    assert_eq!(r, run(&icosphere(2, 30.0)), "the JSON carries the whole report");
+    assert_eq!(
+        r,
+        run(&icosphere(2, 30.0)),
+        "the JSON carries the whole report"
+    );
 
     let ring = dir.join("ring.ply");
     horosphere::io::write_mesh(&ring, &torus(3.0, 1.0, 16, 8)).unwrap();
     let out = horosphere(&["inspect".as_ref(), ring.as_os_str()]);
     assert!(out.status.success());
     let text = String::from_utf8(out.stdout).unwrap();
-    assert!(text.contains("NOT ready to map") && text.contains("genus: "), "{text}");
-    let out = horosphere(&["inspect".as_ref(), ring.as_os_str(), "--require-ready".as_ref()]);
+    assert!(
+        text.contains("NOT ready to map") && text.contains("genus: "),
+        "{text}"
+    );
+    let out = horosphere(&[
+        "inspect".as_ref(),
+        ring.as_os_str(),
+        "--require-ready".as_ref(),
+    ]);
     assert_eq!(out.status.code(), Some(3));
 
     let bad = dir.join("bad.off");
@@ -539,7 +607,8 @@ fn command_line_json_text_and_status() {
 #[test]
 fn every_json_field_is_documented() {
     // docs/inspect-json.md promises every field; keep it honest.
-    let doc = std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/docs/inspect-json.md")).unwrap();
+    let doc = std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/docs/inspect-json.md"))
+        .unwrap();
     let mut m = bow_tie();
     m.positions.push([5.0, 5.0, 5.0]);
     let json = serde_json::to_value(run(&m)).unwrap();

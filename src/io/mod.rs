@@ -11,8 +11,9 @@
 //! Working Group, 2011), OBJ (Wavefront Technologies, "Object Files (.obj)",
 //! Appendix B1 of the Advanced Visualizer manual), PLY (Turk, "The PLY polygon
 //! file format", 1994) and OFF (the OFF format of Geomview: Phillips, Levy,
-//! Munzner, "Geomview: an interactive geometry viewer", Notices AMS 40, 1993). [`read_mesh`] and [`write_mesh`] dispatch on the file
-//! name's extension and, for reading, on magic bytes.
+//! Munzner, "Geomview: an interactive geometry viewer", Notices AMS 40,
+//! 1993). [`read_mesh`] and [`write_mesh`] dispatch on the file name's
+//! extension and, for reading, on magic bytes.
 //!
 //! Polygons with more than three corners (OBJ, PLY, OFF) are split into
 //! triangles by a fan from their first corner: `(v0, v1, ..., vk)` becomes
@@ -21,14 +22,10 @@
 //! triangle meshes, so the rule only matters for hand-made test files.
 
 pub mod atomic;
+pub mod gifti;
 pub mod obj;
 pub mod off;
 pub mod ply;
-
-// GIFTI comes from its own branch. Until that merge the shim stands in; at
-// the merge, delete these two lines and declare `pub mod gifti;` again.
-mod gifti_shim;
-use gifti_shim as gifti;
 
 use crate::error::{Error, Result};
 use crate::mesh::TriMesh;
@@ -257,16 +254,31 @@ mod tests {
             MeshFormat::from_extension(Path::new("a/b.surf.gii")),
             Some(MeshFormat::Gifti)
         );
-        assert_eq!(MeshFormat::from_extension(Path::new("x.OBJ")), Some(MeshFormat::Obj));
-        assert_eq!(MeshFormat::from_extension(Path::new("x.ply")), Some(MeshFormat::Ply));
-        assert_eq!(MeshFormat::from_extension(Path::new("x.off")), Some(MeshFormat::Off));
+        assert_eq!(
+            MeshFormat::from_extension(Path::new("x.OBJ")),
+            Some(MeshFormat::Obj)
+        );
+        assert_eq!(
+            MeshFormat::from_extension(Path::new("x.ply")),
+            Some(MeshFormat::Ply)
+        );
+        assert_eq!(
+            MeshFormat::from_extension(Path::new("x.off")),
+            Some(MeshFormat::Off)
+        );
         assert_eq!(MeshFormat::from_extension(Path::new("x.stl")), None);
         assert_eq!(
             MeshFormat::from_magic(b"\xEF\xBB\xBF<?xml version"),
             Some(MeshFormat::Gifti)
         );
-        assert_eq!(MeshFormat::from_magic(b"  <GIFTI "), Some(MeshFormat::Gifti));
-        assert_eq!(MeshFormat::from_magic(b"ply\r\nformat"), Some(MeshFormat::Ply));
+        assert_eq!(
+            MeshFormat::from_magic(b"  <GIFTI "),
+            Some(MeshFormat::Gifti)
+        );
+        assert_eq!(
+            MeshFormat::from_magic(b"ply\r\nformat"),
+            Some(MeshFormat::Ply)
+        );
         assert_eq!(MeshFormat::from_magic(b"OFF\n3 1 0"), Some(MeshFormat::Off));
         assert_eq!(MeshFormat::from_magic(b"COFF 3 1 0"), Some(MeshFormat::Off));
         assert_eq!(MeshFormat::from_magic(b"v 0 0 0"), None);
@@ -294,20 +306,42 @@ mod tests {
         assert!(matches!(e, Error::BadFile { .. }), "{e}");
         assert!(e.to_string().contains("s.dat"), "{e}");
         assert!(write_mesh(&r, &m).is_err());
-        // GIFTI is routed to the GIFTI module (a stand-in on this branch).
-        assert!(write_mesh(&dir.join("s.surf.gii"), &m).is_err());
+        // GIFTI goes through the GIFTI module: f64 positions become float32.
+        let g = dir.join("s.surf.gii");
+        write_mesh(&g, &m).unwrap();
+        let back = read_mesh(&g).unwrap();
+        assert_eq!(back.faces, m.faces);
+        for (a, b) in back.positions.iter().zip(&m.positions) {
+            for k in 0..3 {
+                assert!(
+                    (a[k] - b[k]).abs() <= 50.0 * f32::EPSILON as f64,
+                    "{a:?} {b:?}"
+                );
+            }
+        }
         std::fs::remove_dir_all(&dir).unwrap();
     }
 
     #[test]
     fn lines_and_fans() {
         let l: Vec<_> = Lines::new(b"a\r\nb\n\nc").collect();
-        assert_eq!(l, vec![(1, &b"a"[..]), (2, &b"b"[..]), (3, &b""[..]), (4, &b"c"[..])]);
+        assert_eq!(
+            l,
+            vec![
+                (1, &b"a"[..]),
+                (2, &b"b"[..]),
+                (3, &b""[..]),
+                (4, &b"c"[..])
+            ]
+        );
         let mut f = Vec::new();
         push_fan(&mut f, &[4, 5, 6, 7, 8]);
         assert_eq!(f, vec![[4, 5, 6], [4, 6, 7], [4, 7, 8]]);
-        for x in [0.1, -1e-300, 1e300, 123.456789012345678, f64::MIN_POSITIVE] {
-            assert_eq!(fmt_coordinate(x).parse::<f64>().unwrap().to_bits(), x.to_bits());
+        for x in [0.1, -1e-300, 1e300, 123.456_789_012_345_68, f64::MIN_POSITIVE] {
+            assert_eq!(
+                fmt_coordinate(x).parse::<f64>().unwrap().to_bits(),
+                x.to_bits()
+            );
         }
     }
 }

@@ -63,7 +63,9 @@ pub fn parse(path: &Path, bytes: &[u8]) -> Result<TriMesh> {
                         Error::bad_file(
                             path,
                             element(),
-                            format!("face corner `{tok}` does not start with an integer vertex index"),
+                            format!(
+                                "face corner `{tok}` does not start with an integer vertex index"
+                            ),
                         )
                     })?;
                     let n = positions.len() as i64;
@@ -202,7 +204,8 @@ mod tests {
 
     #[test]
     fn reads_corner_forms_negative_indices_and_polygons() {
-        let text = "# a square and a triangle\r\nv 0 0 0\nv 1 0 0 1.0\nv 1 1 0\nv 0 1 0 0.5 0.5 0.5\n\
+        let text =
+            "# a square and a triangle\r\nv 0 0 0\nv 1 0 0 1.0\nv 1 1 0\nv 0 1 0 0.5 0.5 0.5\n\
                     vt 0 0\nvn 0 0 1\ng part\nf 1/1/1 2//1 3/1 4\nf -4 -2 -1 # tail comment\n";
         let m = parse(p(), text.as_bytes()).unwrap();
         assert_eq!(m.n_vertices(), 4);
@@ -215,9 +218,15 @@ mod tests {
         let e = err("v 0 0 0\nv 1 0 0\nv 0 1 0\nv 0 0 nan\nf 1 2 3\n");
         assert!(e.contains("line 4") && e.contains("finite"), "{e}");
         let e = err("v 0 0 0\nv 1 0\n");
-        assert!(e.contains("line 2") && e.contains("expected `v x y z`"), "{e}");
+        assert!(
+            e.contains("line 2") && e.contains("expected `v x y z`"),
+            "{e}"
+        );
         let e = err("v 0 0 0\nv 1 0 0\nv 0 1 0\nf 1 2 9\n");
-        assert!(e.contains("line 4") && e.contains("vertex 9") && e.contains("3 vertices"), "{e}");
+        assert!(
+            e.contains("line 4") && e.contains("vertex 9") && e.contains("3 vertices"),
+            "{e}"
+        );
         let e = err("v 0 0 0\nv 1 0 0\nv 0 1 0\nf 1 2 0\n");
         assert!(e.contains("line 4") && e.contains("out of range"), "{e}");
         let e = err("v 0 0 0\nv 1 0 0\nv 0 1 0\nf 1 2 -4\n");

@@ -135,7 +135,10 @@ pub fn parse(path: &Path, bytes: &[u8]) -> Result<TriMesh> {
         return Err(Error::bad_file(
             path,
             "header",
-            format!("declares {nv} vertices; at most {} are supported", u32::MAX - 1),
+            format!(
+                "declares {nv} vertices; at most {} are supported",
+                u32::MAX - 1
+            ),
         ));
     }
     let mut positions = Vec::with_capacity(nv);
@@ -152,10 +155,7 @@ pub fn parse(path: &Path, bytes: &[u8]) -> Result<TriMesh> {
             return Err(Error::bad_file(
                 path,
                 element,
-                format!(
-                    "vertex {i} has {} values; expected `x y z`",
-                    tokens.len()
-                ),
+                format!("vertex {i} has {} values; expected `x y z`", tokens.len()),
             ));
         }
         let mut p = [0.0; 3];
@@ -212,9 +212,7 @@ pub fn parse(path: &Path, bytes: &[u8]) -> Result<TriMesh> {
                     Error::bad_file(
                         path,
                         element.clone(),
-                        format!(
-                            "face {i} has corner `{tok}`; expected a vertex index in 0..{nv}"
-                        ),
+                        format!("face {i} has corner `{tok}`; expected a vertex index in 0..{nv}"),
                     )
                 })?;
             polygon.push(v);
@@ -294,19 +292,34 @@ mod tests {
         let e = err("OFF\n3 1 0\n0 0 0\n1 0 0\n0 NaN 0\n3 0 1 2\n");
         assert!(e.contains("line 5") && e.contains("finite"), "{e}");
         let e = err("OFF\n3 1 0\n0 0 0\n1 0 0\n0 1 0\n3 0 1 3\n");
-        assert!(e.contains("line 6") && e.contains("`3`") && e.contains("0..3"), "{e}");
+        assert!(
+            e.contains("line 6") && e.contains("`3`") && e.contains("0..3"),
+            "{e}"
+        );
         let e = err("OFF\n3 1 0\n0 0 0\n1 0 0\n0 1 0\n3 0 -1 2\n");
         assert!(e.contains("line 6"), "{e}");
         // Truncated: a missing face, a missing vertex (padded past the size
         // check by a comment), and a file too short for its counts.
         let e = err("OFF\n3 2 0\n0 0 0\n1 0 0\n0 1 0\n3 0 1 2\n");
-        assert!(e.contains("end of file") && e.contains("found 1 faces"), "{e}");
+        assert!(
+            e.contains("end of file") && e.contains("found 1 faces"),
+            "{e}"
+        );
         let e = err("OFF\n3 1 0\n0 0 0\n1 0 0\n# padding padding\n");
-        assert!(e.contains("end of file") && e.contains("found 2 vertices"), "{e}");
+        assert!(
+            e.contains("end of file") && e.contains("found 2 vertices"),
+            "{e}"
+        );
         let e = err("OFF\n3 1 0\n0 0 0\n1 0 0\n");
-        assert!(e.contains("header") && e.contains("need at least 26 bytes"), "{e}");
+        assert!(
+            e.contains("header") && e.contains("need at least 26 bytes"),
+            "{e}"
+        );
         let e = err("OFF\n3 1 0\n0 0 0\n1 0 0\n0 1\n3 0 1 2\n");
-        assert!(e.contains("line 5") && e.contains("vertex 2 has 2 values"), "{e}");
+        assert!(
+            e.contains("line 5") && e.contains("vertex 2 has 2 values"),
+            "{e}"
+        );
         // Wrong counts: more declared than the file could hold, without allocating.
         let e = err("OFF\n4000000000 4000000000 0\n0 0 0\n");
         assert!(e.contains("header") && e.contains("need at least"), "{e}");

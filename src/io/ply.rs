@@ -150,7 +150,10 @@ fn parse_header(path: &Path, bytes: &[u8]) -> Result<Header> {
         number += 1;
         if number == 1 {
             if raw != b"ply" {
-                return Err(header_err(path, "first line is not `ply`; expected a PLY file"));
+                return Err(header_err(
+                    path,
+                    "first line is not `ply`; expected a PLY file",
+                ));
             }
             continue;
         }
@@ -181,7 +184,9 @@ fn parse_header(path: &Path, bytes: &[u8]) -> Result<Header> {
                 let count: usize = count.parse().map_err(|_| {
                     header_err(
                         path,
-                        format!("element {name} has count `{count}`; expected a non-negative integer"),
+                        format!(
+                            "element {name} has count `{count}`; expected a non-negative integer"
+                        ),
                     )
                 })?;
                 elements.push(Element {
@@ -196,25 +201,29 @@ fn parse_header(path: &Path, bytes: &[u8]) -> Result<Header> {
                 })?;
                 let (c, i) = match (Scalar::parse(count), Scalar::parse(item)) {
                     (Some(c), Some(i)) => (c, i),
-                    _ => {
-                        return Err(header_err(
-                            path,
-                            format!("line {number}: list types `{count} {item}`; expected PLY scalar types"),
-                        ))
-                    }
+                    _ => return Err(header_err(
+                        path,
+                        format!(
+                            "line {number}: list types `{count} {item}`; expected PLY scalar types"
+                        ),
+                    )),
                 };
                 let corners =
                     el.name == "face" && (*name == "vertex_indices" || *name == "vertex_index");
                 if corners && !(c.is_integer() && i.is_integer()) {
                     return Err(header_err(
                         path,
-                        format!("face list `{name}` has types `{count} {item}`; expected integer types"),
+                        format!(
+                            "face list `{name}` has types `{count} {item}`; expected integer types"
+                        ),
                     ));
                 }
                 if !c.is_integer() {
                     return Err(header_err(
                         path,
-                        format!("line {number}: list count type `{count}`; expected an integer type"),
+                        format!(
+                            "line {number}: list count type `{count}`; expected an integer type"
+                        ),
                     ));
                 }
                 el.properties.push(Property {
@@ -289,13 +298,24 @@ fn check_header(path: &Path, h: &Header, body_len: usize) -> Result<(usize, usiz
         .iter()
         .find(|e| e.name == "face")
         .ok_or_else(|| header_err(path, "no `element face`; expected faces"))?;
-    if face.properties.iter().filter(|p| p.role == Role::Corners).count() != 1 {
+    if face
+        .properties
+        .iter()
+        .filter(|p| p.role == Role::Corners)
+        .count()
+        != 1
+    {
         return Err(header_err(
             path,
             "element face needs one list property `vertex_indices` (or `vertex_index`)",
         ));
     }
-    if h.elements.iter().filter(|e| e.name == "vertex" || e.name == "face").count() != 2 {
+    if h.elements
+        .iter()
+        .filter(|e| e.name == "vertex" || e.name == "face")
+        .count()
+        != 2
+    {
         return Err(header_err(path, "element vertex or face is declared twice"));
     }
     let mut need: u128 = 0;
@@ -338,7 +358,11 @@ fn check_header(path: &Path, h: &Header, body_len: usize) -> Result<(usize, usiz
     if vertex.count >= u32::MAX as usize {
         return Err(header_err(
             path,
-            format!("declares {} vertices; at most {} are supported", vertex.count, u32::MAX - 1),
+            format!(
+                "declares {} vertices; at most {} are supported",
+                vertex.count,
+                u32::MAX - 1
+            ),
         ));
     }
     Ok((vertex.count, face.count))
@@ -394,7 +418,8 @@ impl Sink {
             ));
         }
         push_fan(&mut self.faces, &self.polygon);
-        self.face_of_triangle.resize(self.faces.len(), self.n_polygons);
+        self.face_of_triangle
+            .resize(self.faces.len(), self.n_polygons);
         self.n_polygons += 1;
         Ok(())
     }
@@ -425,7 +450,10 @@ fn read_ascii(path: &Path, h: &Header, body: &[u8], sink: &mut Sink) -> Result<(
                 Error::bad_file(
                     path,
                     "end of file",
-                    format!("found {i} items of element {}; the header declares {}", e.name, e.count),
+                    format!(
+                        "found {i} items of element {}; the header declares {}",
+                        e.name, e.count
+                    ),
                 )
             })?;
             let element = format!("line {number}");
@@ -544,7 +572,13 @@ impl Cursor<'_> {
     }
 }
 
-fn read_binary(path: &Path, h: &Header, body: &[u8], big_endian: bool, sink: &mut Sink) -> Result<()> {
+fn read_binary(
+    path: &Path,
+    h: &Header,
+    body: &[u8],
+    big_endian: bool,
+    sink: &mut Sink,
+) -> Result<()> {
     let mut cur = Cursor {
         bytes: body,
         pos: 0,
@@ -597,7 +631,8 @@ fn read_binary(path: &Path, h: &Header, body: &[u8], big_endian: bool, sink: &mu
                                 sink.polygon.push(corner_index(path, &element(), x)?);
                             }
                         } else {
-                            cur.skip(c.saturating_mul(item.size())).ok_or_else(truncated)?;
+                            cur.skip(c.saturating_mul(item.size()))
+                                .ok_or_else(truncated)?;
                         }
                     }
                 }
@@ -648,14 +683,22 @@ pub fn write_to(w: &mut dyn Write, mesh: &TriMesh, encoding: PlyEncoding) -> std
             let big = encoding == PlyEncoding::BinaryBigEndian;
             for p in &mesh.positions {
                 for &c in p {
-                    w.write_all(&if big { c.to_be_bytes() } else { c.to_le_bytes() })?;
+                    w.write_all(&if big {
+                        c.to_be_bytes()
+                    } else {
+                        c.to_le_bytes()
+                    })?;
                 }
             }
             for t in &mesh.faces {
                 w.write_all(&[3u8])?;
                 for &v in t {
                     // Below 2^31 the `int` and `uint` encodings of v coincide.
-                    w.write_all(&if big { v.to_be_bytes() } else { v.to_le_bytes() })?;
+                    w.write_all(&if big {
+                        v.to_be_bytes()
+                    } else {
+                        v.to_le_bytes()
+                    })?;
                 }
             }
         }
@@ -720,7 +763,11 @@ mod tests {
     /// Hand-assembled binary file with float coordinates, extra properties,
     /// an extra element, `vertex_index`, uint indices and a quad.
     fn foreign_binary(big: bool, nan: bool) -> Vec<u8> {
-        let fmt = if big { "binary_big_endian" } else { "binary_little_endian" };
+        let fmt = if big {
+            "binary_big_endian"
+        } else {
+            "binary_little_endian"
+        };
         let mut b = format!(
             "ply\r\nformat {fmt} 1.0\r\ncomment made by hand\r\nobj_info none\r\n\
              element vertex 4\r\nproperty float x\r\nproperty float y\r\nproperty uchar red\r\n\
@@ -729,9 +776,24 @@ mod tests {
              element edge 1\r\nproperty int a\r\nproperty int b\r\nend_header\r\n"
         )
         .into_bytes();
-        let f32b = |x: f32| if big { x.to_be_bytes() } else { x.to_le_bytes() };
-        let u32b = |x: u32| if big { x.to_be_bytes() } else { x.to_le_bytes() };
-        for (i, q) in [[0f32, 0., 0.], [1., 0., 0.], [1., 1., 0.], [0., 1., 0.]].iter().enumerate() {
+        let f32b = |x: f32| {
+            if big {
+                x.to_be_bytes()
+            } else {
+                x.to_le_bytes()
+            }
+        };
+        let u32b = |x: u32| {
+            if big {
+                x.to_be_bytes()
+            } else {
+                x.to_le_bytes()
+            }
+        };
+        for (i, q) in [[0f32, 0., 0.], [1., 0., 0.], [1., 1., 0.], [0., 1., 0.]]
+            .iter()
+            .enumerate()
+        {
             b.extend(f32b(q[0]));
             b.extend(f32b(q[1]));
             b.push(200);
@@ -744,7 +806,11 @@ mod tests {
         for v in [0u32, 1, 2, 3] {
             b.extend(u32b(v));
         }
-        b.extend(if big { 7i16.to_be_bytes() } else { 7i16.to_le_bytes() });
+        b.extend(if big {
+            7i16.to_be_bytes()
+        } else {
+            7i16.to_le_bytes()
+        });
         b.extend(u32b(0));
         b.extend(u32b(1));
         b
@@ -754,7 +820,10 @@ mod tests {
     fn reads_foreign_layouts() {
         for big in [false, true] {
             let m = parse(p(), &foreign_binary(big, false)).unwrap();
-            assert_eq!(m.positions, vec![[0., 0., 0.], [1., 0., 0.], [1., 1., 0.], [0., 1., 0.]]);
+            assert_eq!(
+                m.positions,
+                vec![[0., 0., 0.], [1., 0., 0.], [1., 1., 0.], [0., 1., 0.]]
+            );
             assert_eq!(m.faces, vec![[0, 1, 2], [0, 2, 3]]);
         }
         let text = b"ply\nformat ascii 1.0\nelement vertex 3\nproperty double z\nproperty double y\nproperty double x\n\
@@ -769,7 +838,10 @@ mod tests {
     fn bad_input_names_element_and_expectation() {
         let m = icosphere(1, 1.0);
         // Truncated binary data: every cut point gives an error, never a panic.
-        for enc in [PlyEncoding::BinaryLittleEndian, PlyEncoding::BinaryBigEndian] {
+        for enc in [
+            PlyEncoding::BinaryLittleEndian,
+            PlyEncoding::BinaryBigEndian,
+        ] {
             let b = to_bytes(&m, enc);
             let body = b.windows(11).position(|w| w == b"end_header\n").unwrap() + 11;
             for cut in [0, 3, body - 1, body, body + 5, b.len() - 13, b.len() - 1] {
@@ -788,7 +860,10 @@ mod tests {
         let t = to_bytes(&m, PlyEncoding::Ascii);
         let cut = t.len() - 20;
         let e = err(&t[..cut]);
-        assert!(e.contains("header") || e.contains("end of file") || e.contains("line"), "{e}");
+        assert!(
+            e.contains("header") || e.contains("end of file") || e.contains("line"),
+            "{e}"
+        );
         // NaN coordinate, binary and ASCII.
         let e = err(&foreign_binary(false, true));
         assert!(e.contains("vertex 2") && e.contains("non-finite"), "{e}");
