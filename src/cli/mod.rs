@@ -7,6 +7,7 @@ use clap::{Parser, Subcommand};
 use std::process::ExitCode;
 
 mod convert;
+mod demo;
 mod inspect;
 
 /// Cortical surfaces of a cohort to one common sphere. Research use only:
@@ -24,6 +25,8 @@ enum Command {
     Inspect(inspect::InspectArgs),
     /// Re-encode a GIFTI file (encoding, byte order), keeping all its content.
     Convert(convert::ConvertArgs),
+    /// Write a synthetic study (folded surfaces, maps, landmarks, ground truth) as BIDS derivatives.
+    Demo(demo::DemoArgs),
 }
 
 /// Run the command line and return the exit status.
@@ -32,6 +35,7 @@ pub fn main() -> ExitCode {
     let result: horosphere::Result<ExitCode> = match &cli.command {
         Command::Inspect(args) => inspect::run(args),
         Command::Convert(args) => convert::run(args),
+        Command::Demo(args) => demo::run(args),
     };
     match result {
         Ok(code) => code,

@@ -343,9 +343,9 @@ pub fn self_intersections(mesh: &TriMesh) -> Vec<(u32, u32)> {
     pairs
 }
 
-/// Faces of `mesh` (among `candidates`, or all when `None`) that intersect
-/// the triangle `tri` and share no vertex index with `tri_ids`. A brute-force
-/// helper for local checks (e.g. after adding a few faces).
+/// Faces of `mesh` that intersect the triangle `tri` and share no vertex
+/// index with `tri_ids`. A brute-force helper (bounding boxes first) for
+/// local checks, e.g. after adding a few faces.
 pub fn faces_hitting(mesh: &TriMesh, tri: &[Vec3; 3], tri_ids: &[u32; 3]) -> Vec<u32> {
     let (a, b) = face_box(tri);
     let mut out = Vec::new();

@@ -44,6 +44,16 @@ pub enum DefectKind {
 }
 
 impl DefectKind {
+    /// The kind's name as written in the ground truth.
+    pub fn label(self) -> &'static str {
+        match self {
+            DefectKind::Hole => "hole",
+            DefectKind::Handle => "handle",
+            DefectKind::StrayComponent => "stray-component",
+            DefectKind::DuplicateVertices => "duplicate-vertices",
+        }
+    }
+
     /// All kinds, in the order the cohort plants them.
     pub const ALL: [DefectKind; 4] = [
         DefectKind::Hole,
@@ -364,6 +374,12 @@ fn build_tube(surface: &FoldedSurface, vf: &[Vec<u32>], fa: usize, fb: usize) ->
 fn stray(surface: &FoldedSurface, rng: &mut Rng, avoid: &[u32]) -> Result<Edited> {
     let mesh = &surface.mesh;
     let blob_radius = 2.0;
+    let longest = mesh
+        .faces
+        .iter()
+        .flat_map(|t| (0..3).map(move |k| (t[k], t[(k + 1) % 3])))
+        .map(|(a, b)| dist(mesh.positions[a as usize], mesh.positions[b as usize]))
+        .fold(0.0, f64::max);
     for &v in candidate_vertices(surface, rng, avoid).iter().take(50) {
         let u = surface.directions[v as usize];
         let r = surface.field.envelope(u) + blob_radius + 3.0;
@@ -373,9 +389,21 @@ fn stray(surface: &FoldedSurface, rng: &mut Rng, avoid: &[u32]) -> Result<Edited
         let mut out = mesh.clone();
         out.positions.extend(blob.positions.iter().map(|q| add(c, *q)));
         let faces: Vec<[u32; 3]> = blob.faces.iter().map(|t| t.map(|i| i + off)).collect();
+        // Only faces with a corner within the blob's radius plus the longest
+        // edge of the mesh can touch it.
+        let reach = blob_radius + longest;
+        let near = TriMesh {
+            positions: mesh.positions.clone(),
+            faces: mesh
+                .faces
+                .iter()
+                .filter(|t| t.iter().any(|&v| dist(mesh.positions[v as usize], c) <= reach))
+                .copied()
+                .collect(),
+        };
         let clean = faces.iter().all(|t| {
             let tri = t.map(|i| out.positions[i as usize]);
-            faces_hitting(mesh, &tri, &[u32::MAX; 3]).is_empty()
+            faces_hitting(&near, &tri, &[u32::MAX; 3]).is_empty()
         });
         if !clean {
             continue;

@@ -21,8 +21,10 @@ pub mod surface;
 pub mod maps;
 pub mod defects;
 pub mod cohort;
+pub mod write;
 
 pub use surface::{folded_surface, FoldField, FoldedSurface, Hemi, SurfaceParams};
 
 #[cfg(test)]
 mod tests;
+mod probe_tmp;
