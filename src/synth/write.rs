@@ -246,10 +246,12 @@ fn readme(params: &CohortParams, command: &str) -> String {
 \n\
 **Synthetic data.** Every surface, map and participant here was made by\n\
 `horosphere demo` from a random seed. No real person, scan or study is\n\
-behind it: the study, the site ({SITE_NAME}) and the participant labels\n\
-are invented.\n\
+behind it: the study, the site and the participant labels are invented\n\
+(site: {SITE_NAME}).\n\
 \n\
-Regenerate byte-identically with:\n\
+Regenerate byte-identically with the command below, run from the folder\n\
+that holds this one, into a new or empty folder (add `--overwrite` to\n\
+replace these files in place; the output is the same):\n\
 \n\
 ```\n\
 {command}\n\
