@@ -150,7 +150,10 @@ fn every_surface_inspects_as_the_ground_truth_says() {
             }
         }
     }
-    assert_eq!(planted, 4, "one subject each with a hole, a handle, a stray piece, duplicates");
+    assert_eq!(
+        planted, 4,
+        "one subject each with a hole, a handle, a stray piece, duplicates"
+    );
     std::fs::remove_dir_all(&out).unwrap();
 }
 
@@ -165,7 +168,10 @@ fn bad_requests_are_refused_clearly() {
         .unwrap();
     assert_eq!(o.status.code(), Some(1));
     let err = String::from_utf8_lossy(&o.stderr);
-    assert!(err.contains("--vertices is 500; expected 2000 to 200000"), "{err}");
+    assert!(
+        err.contains("--vertices is 500; expected 2000 to 200000"),
+        "{err}"
+    );
     assert!(!out.exists(), "nothing written");
     // A non-empty folder is refused without --overwrite.
     std::fs::create_dir_all(&out).unwrap();

@@ -74,9 +74,13 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
             .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
     );
     bar.set_prefix("demo");
-    let summary = write_cohort(&args.out, &params, &command, args.overwrite, &mut |done, _| {
-        bar.set_position(done as u64)
-    });
+    let summary = write_cohort(
+        &args.out,
+        &params,
+        &command,
+        args.overwrite,
+        &mut |done, _| bar.set_position(done as u64),
+    );
     bar.finish_and_clear();
     let summary = summary?;
     if args.json {

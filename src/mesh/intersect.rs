@@ -414,7 +414,10 @@ mod tests {
         assert!(pairs.len() > 40, "{}", pairs.len());
         let nf = a.n_faces() as u32;
         for &(f, g) in &pairs {
-            assert!(f < nf && g >= nf, "pair ({f}, {g}) is not across the spheres");
+            assert!(
+                f < nf && g >= nf,
+                "pair ({f}, {g}) is not across the spheres"
+            );
             let xs: Vec<f64> = m.corners(f as usize).iter().map(|p| p[0]).collect();
             assert!(xs.iter().any(|&x| x > 0.6) && xs.iter().any(|&x| x < 0.9));
         }
@@ -437,7 +440,11 @@ mod tests {
         // Push one vertex of a sphere through to the far side: its faces
         // must now cross faces of the opposite side.
         let mut m = icosphere(2, 1.0);
-        m.positions[0] = [-m.positions[0][0] * 1.2, -m.positions[0][1] * 1.2, -m.positions[0][2] * 1.2];
+        m.positions[0] = [
+            -m.positions[0][0] * 1.2,
+            -m.positions[0][1] * 1.2,
+            -m.positions[0][2] * 1.2,
+        ];
         let pairs = self_intersections(&m);
         assert!(!pairs.is_empty());
         assert!(pairs

@@ -96,7 +96,9 @@ impl CohortParams {
         ];
         for (name, v, lo, hi) in finite {
             if !(v.is_finite() && lo <= v && v <= hi) {
-                return Err(Error::Invalid(format!("{name} is {v}; expected {lo} to {hi}")));
+                return Err(Error::Invalid(format!(
+                    "{name} is {v}; expected {lo} to {hi}"
+                )));
             }
         }
         Ok(())
@@ -138,7 +140,13 @@ pub fn participants(params: &CohortParams) -> Vec<Participant> {
     let n = params.subjects;
     let mut rng = Rng::stream(params.seed, "participants");
     let mut groups: Vec<Group> = (0..n)
-        .map(|i| if i < n.div_ceil(2) { Group::Control } else { Group::Patient })
+        .map(|i| {
+            if i < n.div_ceil(2) {
+                Group::Control
+            } else {
+                Group::Patient
+            }
+        })
         .collect();
     rng.shuffle(&mut groups);
     groups
@@ -157,7 +165,13 @@ pub fn participants(params: &CohortParams) -> Vec<Participant> {
 pub fn participants_tsv(people: &[Participant]) -> String {
     let mut s = String::from("participant_id\tgroup\tage\tsex\n");
     for p in people {
-        s.push_str(&format!("sub-{}\t{}\t{}\t{}\n", p.label, p.group.label(), p.age, p.sex));
+        s.push_str(&format!(
+            "sub-{}\t{}\t{}\t{}\n",
+            p.label,
+            p.group.label(),
+            p.age,
+            p.sex
+        ));
     }
     s
 }
@@ -212,7 +226,11 @@ pub fn subject_seed(params: &CohortParams, index: usize) -> u64 {
 }
 
 /// Generate subject `index` (0-based) of the cohort.
-pub fn generate_subject(params: &CohortParams, people: &[Participant], index: usize) -> Result<SubjectData> {
+pub fn generate_subject(
+    params: &CohortParams,
+    people: &[Participant],
+    index: usize,
+) -> Result<SubjectData> {
     let participant = people
         .get(index)
         .cloned()
@@ -226,7 +244,8 @@ pub fn generate_subject(params: &CohortParams, people: &[Participant], index: us
         sp.hemi = hemi;
         let surface = folded_surface(&sp, seed)?;
         let patient = participant.group == Group::Patient;
-        let age_term = params.age_slope_mm_per_year * (f64::from(participant.age) - params.age_reference);
+        let age_term =
+            params.age_slope_mm_per_year * (f64::from(participant.age) - params.age_reference);
         let effect = &params.effect;
         let thick = thickness(&surface, &params.thickness, seed, |u: Vec3| {
             let group = if patient && hemi == Hemi::Left && effect.contains(u) {
@@ -258,9 +277,19 @@ pub fn generate_subject(params: &CohortParams, people: &[Participant], index: us
                 let avoid: Vec<u32> = landmarks.iter().map(|l| l.vertex).collect();
                 let edited = plant(&surface, kind, &mut rng, &avoid)?;
                 // Carry the maps over; new vertices get 0 and "unlabelled".
-                let gather = |src: &Option<u32>, f: &dyn Fn(usize) -> f32| src.map_or(0.0, |v| f(v as usize));
-                let thickness = edited.source.iter().map(|s| gather(s, &|v| thick[v] as f32)).collect();
-                let depth = edited.source.iter().map(|s| gather(s, &|v| depth[v] as f32)).collect();
+                let gather = |src: &Option<u32>, f: &dyn Fn(usize) -> f32| {
+                    src.map_or(0.0, |v| f(v as usize))
+                };
+                let thickness = edited
+                    .source
+                    .iter()
+                    .map(|s| gather(s, &|v| thick[v] as f32))
+                    .collect();
+                let depth = edited
+                    .source
+                    .iter()
+                    .map(|s| gather(s, &|v| depth[v] as f32))
+                    .collect();
                 let labels = edited
                     .source
                     .iter()
@@ -280,7 +309,10 @@ pub fn generate_subject(params: &CohortParams, people: &[Participant], index: us
                     if v == u32::MAX {
                         return Err(Error::Algorithm {
                             stage: "synth",
-                            message: format!("landmark {} was removed by the planted defect", l.name),
+                            message: format!(
+                                "landmark {} was removed by the planted defect",
+                                l.name
+                            ),
                         });
                     }
                     l.vertex = v;

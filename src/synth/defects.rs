@@ -97,7 +97,12 @@ pub struct Edited {
 
 /// Plant one defect of `kind`. Vertices in `avoid` (and their surroundings,
 /// 12 mm) are kept clear.
-pub fn plant(surface: &FoldedSurface, kind: DefectKind, rng: &mut Rng, avoid: &[u32]) -> Result<Edited> {
+pub fn plant(
+    surface: &FoldedSurface,
+    kind: DefectKind,
+    rng: &mut Rng,
+    avoid: &[u32],
+) -> Result<Edited> {
     match kind {
         DefectKind::Hole => hole(surface, rng, avoid),
         DefectKind::Handle => handle(surface, rng, avoid),
@@ -116,7 +121,10 @@ fn no_site(kind: &str) -> Error {
 /// Vertices in random order that lie on the folded part, away from `avoid`.
 fn candidate_vertices(surface: &FoldedSurface, rng: &mut Rng, avoid: &[u32]) -> Vec<u32> {
     let p = &surface.mesh.positions;
-    let keep_out: Vec<Vec3> = avoid.iter().filter_map(|&v| p.get(v as usize).copied()).collect();
+    let keep_out: Vec<Vec3> = avoid
+        .iter()
+        .filter_map(|&v| p.get(v as usize).copied())
+        .collect();
     let mut order: Vec<u32> = (0..p.len() as u32)
         .filter(|&v| {
             FoldField::fold_weight(surface.directions[v as usize]) >= 1.0
@@ -163,14 +171,19 @@ fn remove_faces(mesh: &TriMesh, remove: &[bool]) -> (TriMesh, Vec<Option<u32>>) 
             source.push(Some(v as u32));
         }
     }
-    let faces = faces.iter().map(|t| t.map(|v| new_id[v as usize])).collect();
+    let faces = faces
+        .iter()
+        .map(|t| t.map(|v| new_id[v as usize]))
+        .collect();
     (TriMesh { positions, faces }, source)
 }
 
 fn hole(surface: &FoldedSurface, rng: &mut Rng, avoid: &[u32]) -> Result<Edited> {
     let mesh = &surface.mesh;
     let vf = vertex_faces(mesh);
-    let v = *candidate_vertices(surface, rng, avoid).first().ok_or_else(|| no_site("hole"))?;
+    let v = *candidate_vertices(surface, rng, avoid)
+        .first()
+        .ok_or_else(|| no_site("hole"))?;
     // The closed one-ring of v, then every face touching it.
     let mut ring: Vec<u32> = vec![v];
     for &f in &vf[v as usize] {
@@ -198,7 +211,11 @@ fn hole(surface: &FoldedSurface, rng: &mut Rng, avoid: &[u32]) -> Result<Edited>
         genus: 0,
         duplicate_pairs: 0,
     };
-    Ok(Edited { mesh: out, source, record })
+    Ok(Edited {
+        mesh: out,
+        source,
+        record,
+    })
 }
 
 /// Unit normal of face `f`.
@@ -229,7 +246,9 @@ fn segment_in_air(surface: &FoldedSurface, a: Vec3, b: Vec3, margin: f64) -> boo
 fn handle(surface: &FoldedSurface, rng: &mut Rng, avoid: &[u32]) -> Result<Edited> {
     let mesh = &surface.mesh;
     let vf = vertex_faces(mesh);
-    let centroids: Vec<Vec3> = (0..mesh.n_faces()).map(|f| centroid(&mesh.corners(f))).collect();
+    let centroids: Vec<Vec3> = (0..mesh.n_faces())
+        .map(|f| centroid(&mesh.corners(f)))
+        .collect();
     let candidates = candidate_vertices(surface, rng, avoid);
     // Mean edge length of a near-equilateral mesh of this area and size.
     let h = (4.0 * mesh.area() / (3f64.sqrt() * mesh.n_faces().max(1) as f64)).sqrt();
@@ -248,7 +267,11 @@ fn handle(surface: &FoldedSurface, rng: &mut Rng, avoid: &[u32]) -> Result<Edite
             continue;
         };
         tried += 1;
-        let (fa, ca, na) = (fa as usize, centroids[fa as usize], face_normal(mesh, fa as usize));
+        let (fa, ca, na) = (
+            fa as usize,
+            centroids[fa as usize],
+            face_normal(mesh, fa as usize),
+        );
         // A facing face across the sulcus, nearest first.
         let mut across: Vec<(f64, usize)> = centroids
             .iter()
@@ -296,8 +319,8 @@ fn build_tube(surface: &FoldedSurface, vf: &[Vec<u32>], fa: usize, fb: usize) ->
     // then be non-manifold).
     let adjacent = vf.iter().any(|(_, faces)| {
         faces
-                .iter()
-                .any(|&f| mesh.faces[f as usize].iter().any(|v| tb.contains(v)))
+            .iter()
+            .any(|&f| mesh.faces[f as usize].iter().any(|v| tb.contains(v)))
     });
     if adjacent {
         return None;
@@ -387,7 +410,8 @@ fn stray(surface: &FoldedSurface, rng: &mut Rng, avoid: &[u32]) -> Result<Edited
         let blob = icosphere(2, blob_radius);
         let off = mesh.n_vertices() as u32;
         let mut out = mesh.clone();
-        out.positions.extend(blob.positions.iter().map(|q| add(c, *q)));
+        out.positions
+            .extend(blob.positions.iter().map(|q| add(c, *q)));
         let faces: Vec<[u32; 3]> = blob.faces.iter().map(|t| t.map(|i| i + off)).collect();
         // Only faces with a corner within the blob's radius plus the longest
         // edge of the mesh can touch it.
@@ -397,7 +421,10 @@ fn stray(surface: &FoldedSurface, rng: &mut Rng, avoid: &[u32]) -> Result<Edited
             faces: mesh
                 .faces
                 .iter()
-                .filter(|t| t.iter().any(|&v| dist(mesh.positions[v as usize], c) <= reach))
+                .filter(|t| {
+                    t.iter()
+                        .any(|&v| dist(mesh.positions[v as usize], c) <= reach)
+                })
                 .copied()
                 .collect(),
         };
@@ -534,7 +561,13 @@ fn seam(surface: &FoldedSurface, rng: &mut Rng, avoid: &[u32]) -> Result<Edited>
 
 /// The faces around `v` met when turning counter-clockwise from the edge
 /// `v -> prev` to the edge `v -> next` (one side of a path through `v`).
-fn fan_between(faces: &[[u32; 3]], around: &[u32], v: u32, prev: u32, next: u32) -> Option<Vec<u32>> {
+fn fan_between(
+    faces: &[[u32; 3]],
+    around: &[u32],
+    v: u32,
+    prev: u32,
+    next: u32,
+) -> Option<Vec<u32>> {
     // Each face as (a, b): v, a, b counter-clockwise.
     let wedge = |f: u32| -> Option<(u32, u32)> {
         let t = faces.get(f as usize)?;
@@ -544,7 +577,9 @@ fn fan_between(faces: &[[u32; 3]], around: &[u32], v: u32, prev: u32, next: u32)
     let mut out = Vec::new();
     let mut from = prev;
     for _ in 0..around.len() {
-        let f = *around.iter().find(|&&f| wedge(f).map(|w| w.0) == Some(from))?;
+        let f = *around
+            .iter()
+            .find(|&&f| wedge(f).map(|w| w.0) == Some(from))?;
         out.push(f);
         let (_, b) = wedge(f)?;
         if b == next {

@@ -53,7 +53,12 @@ impl Default for ThicknessModel {
 
 /// Cortical thickness of every vertex (mm); `shift(u)` is added at
 /// canonical direction `u` before clamping.
-pub fn thickness<F>(surface: &FoldedSurface, model: &ThicknessModel, seed: u64, shift: F) -> Vec<f64>
+pub fn thickness<F>(
+    surface: &FoldedSurface,
+    model: &ThicknessModel,
+    seed: u64,
+    shift: F,
+) -> Vec<f64>
 where
     F: Fn(Vec3) -> f64 + Sync,
 {
@@ -117,14 +122,54 @@ pub const MEDIAL_WALL: i32 = 1;
 pub fn region_table() -> Vec<Region> {
     let c = |v: Vec3| Some(unit(v));
     vec![
-        Region { key: UNLABELLED, name: "unlabelled", rgba: [0.0, 0.0, 0.0, 0.0], centre: None },
-        Region { key: MEDIAL_WALL, name: "medial-wall", rgba: [0.55, 0.55, 0.55, 1.0], centre: None },
-        Region { key: 2, name: "prow", rgba: [0.89, 0.42, 0.20, 1.0], centre: c([-0.2, 0.95, 0.1]) },
-        Region { key: 3, name: "crest", rgba: [0.96, 0.80, 0.25, 1.0], centre: c([0.0, 0.1, 1.0]) },
-        Region { key: 4, name: "flank", rgba: [0.30, 0.65, 0.45, 1.0], centre: c([-1.0, 0.0, 0.1]) },
-        Region { key: 5, name: "keel", rgba: [0.25, 0.45, 0.80, 1.0], centre: c([-0.3, 0.1, -0.95]) },
-        Region { key: 6, name: "stern", rgba: [0.60, 0.35, 0.70, 1.0], centre: c([-0.1, -1.0, 0.0]) },
-        Region { key: 7, name: "shoulder", rgba: [0.85, 0.45, 0.60, 1.0], centre: c([-0.5, -0.55, 0.65]) },
+        Region {
+            key: UNLABELLED,
+            name: "unlabelled",
+            rgba: [0.0, 0.0, 0.0, 0.0],
+            centre: None,
+        },
+        Region {
+            key: MEDIAL_WALL,
+            name: "medial-wall",
+            rgba: [0.55, 0.55, 0.55, 1.0],
+            centre: None,
+        },
+        Region {
+            key: 2,
+            name: "prow",
+            rgba: [0.89, 0.42, 0.20, 1.0],
+            centre: c([-0.2, 0.95, 0.1]),
+        },
+        Region {
+            key: 3,
+            name: "crest",
+            rgba: [0.96, 0.80, 0.25, 1.0],
+            centre: c([0.0, 0.1, 1.0]),
+        },
+        Region {
+            key: 4,
+            name: "flank",
+            rgba: [0.30, 0.65, 0.45, 1.0],
+            centre: c([-1.0, 0.0, 0.1]),
+        },
+        Region {
+            key: 5,
+            name: "keel",
+            rgba: [0.25, 0.45, 0.80, 1.0],
+            centre: c([-0.3, 0.1, -0.95]),
+        },
+        Region {
+            key: 6,
+            name: "stern",
+            rgba: [0.60, 0.35, 0.70, 1.0],
+            centre: c([-0.1, -1.0, 0.0]),
+        },
+        Region {
+            key: 7,
+            name: "shoulder",
+            rgba: [0.85, 0.45, 0.60, 1.0],
+            centre: c([-0.5, -0.55, 0.65]),
+        },
     ]
 }
 
@@ -165,7 +210,11 @@ pub fn jitter(rng: &mut Rng, d: Vec3, sd_deg: f64) -> Vec3 {
     if sd_deg <= 0.0 {
         return d;
     }
-    let a = if d[0].abs() < 0.9 { [1.0, 0.0, 0.0] } else { [0.0, 1.0, 0.0] };
+    let a = if d[0].abs() < 0.9 {
+        [1.0, 0.0, 0.0]
+    } else {
+        [0.0, 1.0, 0.0]
+    };
     let t1 = unit(cross(d, a));
     let t2 = cross(d, t1);
     let (sx, sy) = (gx * sd_deg.to_radians(), gy * sd_deg.to_radians());
@@ -194,7 +243,10 @@ pub struct Landmark {
 
 /// The landmark template: seven invented points, named after parts of a boat.
 pub fn landmark_template() -> Vec<Landmark> {
-    let l = |name, v: Vec3| Landmark { name, direction: unit(v) };
+    let l = |name, v: Vec3| Landmark {
+        name,
+        direction: unit(v),
+    };
     vec![
         l("bow-tip", [-0.25, 1.0, 0.05]),
         l("stern-tip", [-0.2, -1.0, 0.1]),
@@ -239,7 +291,11 @@ pub fn place_landmarks(surface: &FoldedSurface, seed: u64, jitter_deg: f64) -> V
         .map(|l| {
             let d = jitter(&mut rng, l.direction, jitter_deg);
             let vertex = nearest_vertex(&surface.directions, d).unwrap_or(0);
-            PlacedLandmark { name: l.name, direction: d, vertex }
+            PlacedLandmark {
+                name: l.name,
+                direction: d,
+                vertex,
+            }
         })
         .collect()
 }

@@ -15,16 +15,15 @@
 //! duplicated vertices), [`cohort`] (a study: participants, subjects,
 //! ground truth).
 
+pub mod cohort;
+pub mod defects;
+pub mod maps;
 pub mod rng;
 pub mod sphere;
 pub mod surface;
-pub mod maps;
-pub mod defects;
-pub mod cohort;
 pub mod write;
 
 pub use surface::{folded_surface, FoldField, FoldedSurface, Hemi, SurfaceParams};
 
 #[cfg(test)]
 mod tests;
-mod probe_tmp;

@@ -234,8 +234,14 @@ mod tests {
     fn streams_differ_and_repeat() {
         let a: Vec<u64> = (0..4).map(|_| Rng::stream(1, "a").next_u64()).collect();
         assert!(a.iter().all(|&x| x == a[0]));
-        assert_ne!(Rng::stream(1, "a").next_u64(), Rng::stream(1, "b").next_u64());
-        assert_ne!(Rng::stream(1, "a").next_u64(), Rng::stream(2, "a").next_u64());
+        assert_ne!(
+            Rng::stream(1, "a").next_u64(),
+            Rng::stream(1, "b").next_u64()
+        );
+        assert_ne!(
+            Rng::stream(1, "a").next_u64(),
+            Rng::stream(2, "a").next_u64()
+        );
     }
 
     #[test]

@@ -149,7 +149,7 @@ impl Default for SurfaceParams {
             bump_amplitude: 2.5,
             variability_deg: 4.0,
             sphere_jitter: 0.15,
-            template_seed: 0x5EED_0F_C0_27E5,
+            template_seed: 0x5EED_0FC0_27E5,
         }
     }
 }
@@ -167,14 +167,24 @@ impl SurfaceParams {
                 "500 to 4,000,000",
             );
         }
-        if !self.semi_axes.iter().all(|a| a.is_finite() && (10.0..=500.0).contains(a)) {
-            return bad("semi-axes", format!("{:?}", self.semi_axes), "10 to 500 mm each");
+        if !self
+            .semi_axes
+            .iter()
+            .all(|a| a.is_finite() && (10.0..=500.0).contains(a))
+        {
+            return bad(
+                "semi-axes",
+                format!("{:?}", self.semi_axes),
+                "10 to 500 mm each",
+            );
         }
         if !(0.3..=1.0).contains(&self.medial_cut) {
             return bad("medial cut", self.medial_cut.to_string(), "0.3 to 1");
         }
         let min_axis = self.semi_axes.iter().copied().fold(f64::INFINITY, f64::min);
-        let deepest = self.primary_depth[1].max(self.secondary_depth[1]).min(DEPTH_CAP);
+        let deepest = self.primary_depth[1]
+            .max(self.secondary_depth[1])
+            .min(DEPTH_CAP);
         let ranges = [
             ("primary depth", self.primary_depth),
             ("primary length", self.primary_length),
@@ -340,19 +350,19 @@ fn polyline_distance(s: &Sulcus, p: Vec3, cutoff: f64) -> (f64, f64) {
             continue;
         }
         for k in first + 1..(first + CHUNK + 1).min(path.len()) {
-        let (a, b) = (path[k - 1], path[k]);
-        let ab = sub(b, a);
-        let l2 = dot(ab, ab);
-        let t = if l2 > 0.0 {
-            (dot(sub(p, a), ab) / l2).clamp(0.0, 1.0)
-        } else {
-            0.0
-        };
-        let q = add(a, scale(ab, t));
-        let d = norm(sub(p, q));
-        if d < best.0 {
-            best = (d, along[k - 1] + t * (along[k] - along[k - 1]));
-        }
+            let (a, b) = (path[k - 1], path[k]);
+            let ab = sub(b, a);
+            let l2 = dot(ab, ab);
+            let t = if l2 > 0.0 {
+                (dot(sub(p, a), ab) / l2).clamp(0.0, 1.0)
+            } else {
+                0.0
+            };
+            let q = add(a, scale(ab, t));
+            let d = norm(sub(p, q));
+            if d < best.0 {
+                best = (d, along[k - 1] + t * (along[k] - along[k - 1]));
+            }
         }
     }
     best
@@ -558,14 +568,19 @@ fn secondary_network(
 /// Hemisphere centre in world coordinates.
 pub fn hemisphere_centre(params: &SurfaceParams) -> Vec3 {
     let x = -(params.midline_gap + params.medial_cut * params.semi_axes[0]);
-    params.hemi.to_world([x, params.centre_yz[0], params.centre_yz[1]])
+    params
+        .hemi
+        .to_world([x, params.centre_yz[0], params.centre_yz[1]])
 }
 
 /// Point of the circle of `s` at angle `theta` (unit direction).
 fn arc_point(pole: Vec3, e1: Vec3, e2: Vec3, rho: f64, theta: f64) -> Vec3 {
     let (sr, cr) = rho.sin_cos();
     let (st, ct) = theta.sin_cos();
-    unit(add(scale(pole, cr), scale(add(scale(e1, ct), scale(e2, st)), sr)))
+    unit(add(
+        scale(pole, cr),
+        scale(add(scale(e1, ct), scale(e2, st)), sr),
+    ))
 }
 
 /// Build `path`, `along`, `length` and `bound` of a sulcus from its circle.
@@ -598,7 +613,10 @@ fn trace(s: &mut Sulcus, field: &FoldField) {
         .step_by(CHUNK)
         .map(|first| {
             let pts = &s.path[first..(first + CHUNK + 1).min(s.path.len())];
-            let c = scale(pts.iter().fold([0.0; 3], |a, p| add(a, *p)), 1.0 / pts.len() as f64);
+            let c = scale(
+                pts.iter().fold([0.0; 3], |a, p| add(a, *p)),
+                1.0 / pts.len() as f64,
+            );
             let r = pts.iter().map(|p| norm(sub(*p, c))).fold(0.0, f64::max);
             (first, c, r)
         })
@@ -764,7 +782,7 @@ pub fn folded_surface(params: &SurfaceParams, seed: u64) -> Result<FoldedSurface
             (field.envelope(u) - d, d)
         })
         .collect();
-    if let Some((i, _)) = radii.iter().enumerate().find(|(_, r)| !(r.0 > 0.5)) {
+    if let Some((i, _)) = radii.iter().enumerate().find(|(_, r)| r.0.is_nan() || r.0 <= 0.5) {
         return Err(Error::Algorithm {
             stage: "synth",
             message: format!("radius at vertex {i} is not positive; reduce sulcal depth or bumps"),

@@ -41,9 +41,15 @@ fn clean_surfaces_are_closed_genus0_embedded_and_outward() {
     // Closed genus-0 surfaces have V - E + F = 2 (Euler; Massey, "A basic
     // course in algebraic topology", 1991). Ten seeds, sizes 2k to 20k,
     // both hemispheres.
-    let sizes = [2_000usize, 3_100, 5_000, 7_777, 12_000, 2_500, 20_000, 4_000, 9_000, 15_000];
+    let sizes = [
+        2_000usize, 3_100, 5_000, 7_777, 12_000, 2_500, 20_000, 4_000, 9_000, 15_000,
+    ];
     for (seed, &n) in sizes.iter().enumerate() {
-        let hemi = if seed % 2 == 0 { Hemi::Left } else { Hemi::Right };
+        let hemi = if seed % 2 == 0 {
+            Hemi::Left
+        } else {
+            Hemi::Right
+        };
         let s = folded_surface(&params(n, hemi), seed as u64 + 100).unwrap();
         let m = &s.mesh;
         assert_eq!(m.n_vertices(), n, "seed {seed}: exact vertex count");
@@ -52,12 +58,19 @@ fn clean_surfaces_are_closed_genus0_embedded_and_outward() {
         assert_eq!(euler(m), 2, "seed {seed}: genus 0");
         assert_eq!(face_components(m).1, 1, "seed {seed}: one piece");
         let hits = self_intersections(m);
-        assert!(hits.is_empty(), "seed {seed}, {n} vertices: {} intersecting pairs", hits.len());
+        assert!(
+            hits.is_empty(),
+            "seed {seed}, {n} vertices: {} intersecting pairs",
+            hits.len()
+        );
         // Outward: every face turns counter-clockwise about the centre, and
         // the enclosed volume is positive.
         for t in &m.faces {
             let [a, b, c] = t.map(|v| crate::mesh::sub(m.positions[v as usize], s.centre));
-            assert!(dot(a, crate::mesh::cross(b, c)) > 0.0, "seed {seed}: face turned inward");
+            assert!(
+                dot(a, crate::mesh::cross(b, c)) > 0.0,
+                "seed {seed}: face turned inward"
+            );
         }
         assert!(m.signed_volume() > 0.0);
         // Midline: the left hemisphere lies at x < 0, the right at x > 0.
@@ -77,7 +90,10 @@ fn size_and_folding_are_hemisphere_like() {
     for (seed, hemi) in [(1u64, Hemi::Left), (2, Hemi::Right)] {
         let s = folded_surface(&params(150_000, hemi), seed).unwrap();
         let area_cm2 = s.mesh.area() / 100.0;
-        assert!((800.0..=1200.0).contains(&area_cm2), "seed {seed}: area {area_cm2:.0} cm^2");
+        assert!(
+            (800.0..=1200.0).contains(&area_cm2),
+            "seed {seed}: area {area_cm2:.0} cm^2"
+        );
         // Extent: about 70 x 160 x 110 mm (semi-axes 35, 80, 55; medial side
         // flattened), to within 15 mm.
         let (lo, hi) = s.mesh.bounding_box();
@@ -90,7 +106,12 @@ fn size_and_folding_are_hemisphere_like() {
         let dmax = s.depth.iter().copied().fold(0.0, f64::max);
         assert!((18.0..=25.0).contains(&dmax), "deepest fold {dmax}");
         let va = s.mesh.vertex_areas();
-        let buried: f64 = va.iter().zip(&s.depth).filter(|(_, d)| **d > 3.0).map(|(a, _)| a).sum();
+        let buried: f64 = va
+            .iter()
+            .zip(&s.depth)
+            .filter(|(_, d)| **d > 3.0)
+            .map(|(a, _)| a)
+            .sum();
         let frac = buried / s.mesh.area();
         assert!((0.4..0.85).contains(&frac), "buried fraction {frac}");
     }
@@ -108,7 +129,12 @@ fn thickness_in_the_human_range() {
         let va = s.mesh.vertex_areas();
         let a: f64 = va.iter().sum();
         let mean = t.iter().zip(&va).map(|(x, w)| x * w).sum::<f64>() / a;
-        let var = t.iter().zip(&va).map(|(x, w)| (x - mean).powi(2) * w).sum::<f64>() / a;
+        let var = t
+            .iter()
+            .zip(&va)
+            .map(|(x, w)| (x - mean).powi(2) * w)
+            .sum::<f64>()
+            / a;
         assert!((mean - 2.5).abs() < 0.2, "mean {mean}");
         assert!((0.2..0.7).contains(&var.sqrt()), "sd {}", var.sqrt());
         // Thinner in fundi than on crowns.
@@ -132,7 +158,13 @@ fn planted_effect_is_exactly_where_stated() {
     let effect = CapEffect::default();
     let model = ThicknessModel::default();
     let base = thickness(&s, &model, 9, |_| 0.0);
-    let thin = thickness(&s, &model, 9, |u| if effect.contains(u) { effect.change_mm } else { 0.0 });
+    let thin = thickness(&s, &model, 9, |u| {
+        if effect.contains(u) {
+            effect.change_mm
+        } else {
+            0.0
+        }
+    });
     let mut inside = 0;
     for ((u, a), b) in s.directions.iter().zip(&base).zip(&thin) {
         if effect.contains(*u) {
@@ -182,7 +214,10 @@ fn regions_and_landmarks_correspond_across_subjects() {
             assert_eq!(p.name, t.name);
             // Jitter: each tangent component N(0, 3 deg), so the angle is
             // Rayleigh(3 deg): beyond 15 deg with probability e^-12.5.
-            let off = dot(p.direction, t.direction).clamp(-1.0, 1.0).acos().to_degrees();
+            let off = dot(p.direction, t.direction)
+                .clamp(-1.0, 1.0)
+                .acos()
+                .to_degrees();
             assert!(off < 15.0, "{}: {off} deg", p.name);
             // The vertex is the nearest one: within about one edge (6000
             // vertices: mean edge 2.9 deg) of the jittered direction.
@@ -207,19 +242,32 @@ fn check_defect(kind: DefectKind, hemi: Hemi, seed: u64) {
     let r = &e.record;
     assert_eq!(loops.len(), r.boundary_loops, "{kind:?}: boundary loops");
     assert_eq!(comps, r.components, "{kind:?}: components");
-    assert_eq!(duplicate_pairs(m), r.duplicate_pairs, "{kind:?}: duplicates");
-    assert!((0..table.len()).all(|i| table.valence(i) <= 2), "{kind:?}: non-manifold edge");
+    assert_eq!(
+        duplicate_pairs(m),
+        r.duplicate_pairs,
+        "{kind:?}: duplicates"
+    );
+    assert!(
+        (0..table.len()).all(|i| table.valence(i) <= 2),
+        "{kind:?}: non-manifold edge"
+    );
     // No self-intersections, except that faces on the two sides of a
     // duplicated seam touch where their (distinct) vertices coincide.
     for (f, g) in self_intersections(m) {
         let pf = m.faces[f as usize].map(|v| m.positions[v as usize]);
         let pg = m.faces[g as usize].map(|v| m.positions[v as usize]);
         let touch = pf.iter().any(|p| pg.contains(p));
-        assert!(kind == DefectKind::DuplicateVertices && touch, "{kind:?}: faces {f} and {g} cross");
+        assert!(
+            kind == DefectKind::DuplicateVertices && touch,
+            "{kind:?}: faces {f} and {g} cross"
+        );
     }
     // Every vertex is used by some face.
     let mut used = vec![false; m.n_vertices()];
-    m.faces.iter().flatten().for_each(|&v| used[v as usize] = true);
+    m.faces
+        .iter()
+        .flatten()
+        .for_each(|&v| used[v as usize] = true);
     assert!(used.iter().all(|&u| u), "{kind:?}: unused vertex");
     match kind {
         DefectKind::Hole => {
@@ -253,7 +301,11 @@ fn check_defect(kind: DefectKind, hemi: Hemi, seed: u64) {
 fn defects_are_exactly_what_is_planted() {
     for (i, kind) in DefectKind::ALL.iter().enumerate() {
         for seed in [31u64, 32] {
-            let hemi = if (i + seed as usize) % 2 == 0 { Hemi::Left } else { Hemi::Right };
+            let hemi = if (i + seed as usize) % 2 == 0 {
+                Hemi::Left
+            } else {
+                Hemi::Right
+            };
             check_defect(*kind, hemi, seed);
         }
     }
@@ -263,7 +315,10 @@ fn defects_are_exactly_what_is_planted() {
 fn same_seed_same_bits_any_thread_count() {
     let p = params(6_000, Hemi::Right);
     let run = |threads: usize| {
-        let pool = rayon::ThreadPoolBuilder::new().num_threads(threads).build().unwrap();
+        let pool = rayon::ThreadPoolBuilder::new()
+            .num_threads(threads)
+            .build()
+            .unwrap();
         pool.install(|| {
             let s = folded_surface(&p, 77).unwrap();
             let t = thickness(&s, &ThicknessModel::default(), 77, |_| 0.0);
@@ -272,7 +327,12 @@ fn same_seed_same_bits_any_thread_count() {
     };
     let (m1, t1) = run(1);
     let (m2, t2) = run(2);
-    let bits = |m: &TriMesh| m.positions.iter().flat_map(|p| p.map(f64::to_bits)).collect::<Vec<_>>();
+    let bits = |m: &TriMesh| {
+        m.positions
+            .iter()
+            .flat_map(|p| p.map(f64::to_bits))
+            .collect::<Vec<_>>()
+    };
     assert_eq!(bits(&m1), bits(&m2));
     assert_eq!(m1.faces, m2.faces);
     assert_eq!(
@@ -352,12 +412,19 @@ fn bad_options_are_refused_with_the_option_named() {
     assert!(e.to_string().contains("deepest sulcus"), "{e}");
     let mut p = params(2_000, Hemi::Left);
     p.sulcus_dropout = f64::NAN;
-    assert!(folded_surface(&p, 1).unwrap_err().to_string().contains("dropout"));
+    assert!(folded_surface(&p, 1)
+        .unwrap_err()
+        .to_string()
+        .contains("dropout"));
     let c = CohortParams {
         subjects: 0,
         ..Default::default()
     };
-    assert!(c.validate().unwrap_err().to_string().contains("subject count"));
+    assert!(c
+        .validate()
+        .unwrap_err()
+        .to_string()
+        .contains("subject count"));
 }
 
 #[test]

@@ -74,7 +74,10 @@ pub fn write_cohort(
         files.push(path);
         Ok(())
     };
-    put(out.join("participants.tsv"), participants_tsv(&people).as_bytes())?;
+    put(
+        out.join("participants.tsv"),
+        participants_tsv(&people).as_bytes(),
+    )?;
     put(out.join("participants.json"), PARTICIPANTS_JSON.as_bytes())?;
     put(
         out.join("dataset_description.json"),
@@ -86,7 +89,9 @@ pub fn write_cohort(
     let mut gifti_files = Vec::new();
     for i in 0..people.len() {
         let id = format!("sub-{}", people[i].label);
-        match generate_subject(params, &people, i).and_then(|s| write_subject(out, &s).map(|f| (s, f))) {
+        match generate_subject(params, &people, i)
+            .and_then(|s| write_subject(out, &s).map(|f| (s, f)))
+        {
             Ok((s, written)) => {
                 truths.push(SubjectTruth::of(&s));
                 gifti_files.extend(written);
@@ -104,7 +109,10 @@ pub fn write_cohort(
             serde_json::to_value(&failed).unwrap_or_default(),
         );
     }
-    put(out.join("ground_truth.json"), json_bytes(&truth)?.as_slice())?;
+    put(
+        out.join("ground_truth.json"),
+        json_bytes(&truth)?.as_slice(),
+    )?;
     files.extend(gifti_files);
     let bytes = files
         .iter()
@@ -139,7 +147,8 @@ pub fn write_cohort(
 
 /// Pretty JSON with a final newline.
 fn json_bytes<T: Serialize>(value: &T) -> Result<Vec<u8>> {
-    let mut v = serde_json::to_vec_pretty(value).map_err(|e| Error::Invalid(format!("JSON: {e}")))?;
+    let mut v =
+        serde_json::to_vec_pretty(value).map_err(|e| Error::Invalid(format!("JSON: {e}")))?;
     v.push(b'\n');
     Ok(v)
 }
@@ -178,7 +187,10 @@ pub fn write_subject(out: &Path, s: &SubjectData) -> Result<Vec<PathBuf>> {
         let mut meta = MetaData::new();
         meta.set("Name", "depth");
         meta.set("Units", "mm");
-        meta.set("Description", "depth below the unfolded envelope; 0 on crowns, positive in sulci");
+        meta.set(
+            "Description",
+            "depth below the unfolded envelope; 0 on crowns, positive in sulci",
+        );
         let p = dir.join(format!("{stem}_depth.shape.gii"));
         gifti::write_shape(&p, &h.depth, &meta)?;
         files.push(p);
@@ -236,9 +248,9 @@ fn readme(params: &CohortParams, command: &str) -> String {
     let defects: Vec<String> = super::cohort::defect_plan(params)
         .iter()
         .filter_map(|(i, hemi, kind)| {
-            participants(params).get(*i).map(|p| {
-                format!("- sub-{} hemi-{}: {}", p.label, hemi.label(), kind.label())
-            })
+            participants(params)
+                .get(*i)
+                .map(|p| format!("- sub-{} hemi-{}: {}", p.label, hemi.label(), kind.label()))
         })
         .collect();
     format!(
