@@ -9,6 +9,7 @@ use std::process::ExitCode;
 mod convert;
 mod demo;
 mod inspect;
+mod repair;
 
 /// Cortical surfaces of a cohort to one common sphere. Research use only:
 /// not a medical device; results need review by a trained analyst.
@@ -27,6 +28,9 @@ enum Command {
     Convert(convert::ConvertArgs),
     /// Write a synthetic study (folded surfaces, maps, landmarks, ground truth) as BIDS derivatives.
     Demo(demo::DemoArgs),
+    /// Repair a surface: merge duplicate vertices, drop degenerate faces and
+    /// stray pieces, orient it consistently and outward, fill its holes.
+    Repair(repair::RepairArgs),
 }
 
 /// Run the command line and return the exit status.
@@ -36,6 +40,7 @@ pub fn main() -> ExitCode {
         Command::Inspect(args) => inspect::run(args),
         Command::Convert(args) => convert::run(args),
         Command::Demo(args) => demo::run(args),
+        Command::Repair(args) => repair::run(args),
     };
     match result {
         Ok(code) => code,
