@@ -219,11 +219,20 @@ fn regions_and_landmarks_correspond_across_subjects() {
                 .acos()
                 .to_degrees();
             assert!(off < 15.0, "{}: {off} deg", p.name);
-            // The vertex is the nearest one: within about one edge (6000
-            // vertices: mean edge 2.9 deg) of the jittered direction.
+            // The vertex is the nearest one: within about one and a half
+            // edges (6000 vertices: mean edge 2.9 deg on a uniform sphere;
+            // the warp and the relaxation make directions denser in some
+            // places and sparser in others) of the jittered direction.
             let u = s.directions[p.vertex as usize];
             let snap = dot(u, p.direction).clamp(-1.0, 1.0).acos().to_degrees();
-            assert!(snap < 3.0, "{}: {snap} deg", p.name);
+            assert!(snap < 4.5, "{}: {snap} deg", p.name);
+            // And no other vertex is nearer.
+            let best = s
+                .directions
+                .iter()
+                .map(|v| dot(*v, p.direction))
+                .fold(f64::NEG_INFINITY, f64::max);
+            assert_eq!(dot(u, p.direction), best);
         }
     }
 }
@@ -435,4 +444,35 @@ fn largest_size_is_clean() {
     assert!(all_edges_two_faces(&s.mesh));
     assert_eq!(euler(&s.mesh), 2);
     assert!(self_intersections(&s.mesh).is_empty());
+}
+
+#[test]
+fn triangles_mostly_good_some_thin() {
+    // Smallest angle of each triangle: an equilateral one has 60 degrees.
+    // Surfaces from real scans are mostly well shaped with some thin
+    // triangles; ours must be too (figures measured at 15k vertices:
+    // median 25 degrees, 3% under 10 degrees).
+    let s = folded_surface(&params(12_000, Hemi::Left), 41).unwrap();
+    let m = &s.mesh;
+    let mut small: Vec<f64> = (0..m.n_faces())
+        .map(|f| {
+            let c = m.corners(f);
+            (0..3)
+                .map(|k| {
+                    let u = crate::mesh::sub(c[(k + 1) % 3], c[k]);
+                    let v = crate::mesh::sub(c[(k + 2) % 3], c[k]);
+                    (dot(u, v) / (crate::mesh::norm(u) * crate::mesh::norm(v)))
+                        .clamp(-1.0, 1.0)
+                        .acos()
+                        .to_degrees()
+                })
+                .fold(f64::INFINITY, f64::min)
+        })
+        .collect();
+    small.sort_by(f64::total_cmp);
+    let median = small[small.len() / 2];
+    let thin = small.iter().filter(|&&a| a < 10.0).count() as f64 / small.len() as f64;
+    assert!(median > 18.0, "median smallest angle {median}");
+    assert!(thin < 0.12, "share of triangles under 10 degrees {thin}");
+    assert!(small[0] > 0.1, "degenerate triangle: {}", small[0]);
 }
