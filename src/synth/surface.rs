@@ -415,9 +415,28 @@ impl FoldField {
 
     /// Fold depth `D(u) >= 0` in mm.
     pub fn depth(&self, u: Vec3) -> f64 {
+        self.depth_near(u, None).0
+    }
+
+    /// Fold depth at `u` and the index of the network seed nearest to it.
+    /// With `hint` (a seed near `u`, e.g. the answer for a nearby point) the
+    /// nearest seed is found by a greedy walk over the seeds' neighbour
+    /// lists instead of a scan of all seeds; the lists hold every seed
+    /// within three spacings, which includes the Delaunay neighbours of a
+    /// dart-throwing set, and on a Delaunay graph the greedy walk ends at
+    /// the nearest seed.
+    pub fn depth_near(&self, u: Vec3, hint: Option<usize>) -> (f64, usize) {
         let w = Self::fold_weight(u);
         if w <= 0.0 {
-            return 0.0;
+            // No folds here, but the nearest seed is still reported.
+            let p = self.base_point(u);
+            let near = match hint {
+                Some(h) if h < self.network.seeds.len() => {
+                    Some(walk_to_nearest(&self.network, p, h))
+                }
+                _ => nearest_seed(&self.network.seeds, p),
+            };
+            return (0.0, near.map_or(0, |n| n.0));
         }
         let p = self.base_point(u);
         let mut acc = 0.0;
@@ -444,7 +463,12 @@ impl FoldField {
         }
         // The secondary network: nearest seed i, then every neighbour j.
         let net = &self.network;
-        if let Some((i, di)) = nearest_seed(&net.seeds, p) {
+        let near = match hint {
+            Some(h) if h < net.seeds.len() => Some(walk_to_nearest(net, p, h)),
+            _ => nearest_seed(&net.seeds, p),
+        };
+        let nearest = near.map_or(0, |n| n.0);
+        if let Some((i, di)) = near {
             let w = net.half_width;
             for &(j, dep) in &net.neighbours[i] {
                 if dep <= 0.0 {
@@ -467,7 +491,10 @@ impl FoldField {
             best
         };
         // A soft ceiling where sulci cross.
-        w * soft_min(d, DEPTH_CAP, DEPTH_CAP_SOFTNESS).max(0.0)
+        (
+            w * soft_min(d, DEPTH_CAP, DEPTH_CAP_SOFTNESS).max(0.0),
+            nearest,
+        )
     }
 
     /// The radius `r(u) = E(u) + B(u) - D(u)`.
@@ -509,6 +536,30 @@ impl FoldedSurface {
         } else {
             [0.0, 0.0, 1.0]
         }
+    }
+}
+
+/// Greedy walk from seed `start` to the seed nearest `p`: move to the
+/// nearest listed neighbour while it is nearer (lowest index on ties).
+fn walk_to_nearest(net: &Network, p: Vec3, start: usize) -> (usize, f64) {
+    let d2 = |i: usize| {
+        let d = sub(p, net.seeds[i]);
+        dot(d, d)
+    };
+    // (squared distance, index) decreases strictly at every step.
+    let mut cur = (d2(start), start);
+    loop {
+        let mut next = cur;
+        for &(j, _) in &net.neighbours[cur.1] {
+            let cand = (d2(j as usize), j as usize);
+            if cand.0 < next.0 || (cand.0 == next.0 && cand.1 < next.1) {
+                next = cand;
+            }
+        }
+        if next == cur {
+            return (cur.1, cur.0.sqrt());
+        }
+        cur = next;
     }
 }
 
@@ -809,13 +860,13 @@ fn neighbours(n: usize, faces: &[[u32; 3]]) -> (Vec<usize>, Vec<u32>) {
 /// faces keep tiling the sphere and the surface stays embedded.
 fn relax_round(
     dirs: &mut [Vec3],
-    radii: &[(f64, f64)],
+    radii: &[f64],
     nbrs: &(Vec<usize>, Vec<u32>),
     faces: &[[u32; 3]],
 ) {
     let (start, list) = nbrs;
     let old: Vec<Vec3> = dirs.to_vec();
-    let pos: Vec<Vec3> = old.iter().zip(radii).map(|(u, r)| scale(*u, r.0)).collect();
+    let pos: Vec<Vec3> = old.iter().zip(radii).map(|(u, r)| scale(*u, *r)).collect();
     let moved: Vec<Vec3> = (0..old.len())
         .into_par_iter()
         .with_min_len(1024)
@@ -874,23 +925,29 @@ pub fn folded_surface(params: &SurfaceParams, seed: u64) -> Result<FoldedSurface
         .iter()
         .map(|&u| warp_direction(u, params.semi_axes))
         .collect();
-    let radius_and_depth = |dirs: &[Vec3]| -> Vec<(f64, f64)> {
+    // Radius, depth and nearest network seed of every vertex; after the
+    // first pass each vertex starts its seed search from its last answer.
+    let radius_and_depth = |dirs: &[Vec3], hints: Option<&[usize]>| -> Vec<(f64, f64, usize)> {
         dirs.par_iter()
+            .enumerate()
             .with_min_len(1024)
-            .map(|&u| {
-                let d = field.depth(u);
-                (field.envelope(u) - d, d)
+            .map(|(i, &u)| {
+                let (d, near) = field.depth_near(u, hints.and_then(|h| h.get(i).copied()));
+                (field.envelope(u) - d, d, near)
             })
             .collect()
     };
-    let mut radii = radius_and_depth(&directions);
+    let mut rdn = radius_and_depth(&directions, None);
     if params.relax_rounds > 0 {
         let nbrs = neighbours(directions.len(), &sphere.faces);
         for _ in 0..params.relax_rounds {
+            let radii: Vec<f64> = rdn.iter().map(|r| r.0).collect();
             relax_round(&mut directions, &radii, &nbrs, &sphere.faces);
-            radii = radius_and_depth(&directions);
+            let hints: Vec<usize> = rdn.iter().map(|r| r.2).collect();
+            rdn = radius_and_depth(&directions, Some(&hints));
         }
     }
+    let radii: Vec<(f64, f64)> = rdn.iter().map(|r| (r.0, r.1)).collect();
     if let Some((i, _)) = radii
         .iter()
         .enumerate()

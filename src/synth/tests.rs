@@ -476,3 +476,21 @@ fn triangles_mostly_good_some_thin() {
     assert!(thin < 0.12, "share of triangles under 10 degrees {thin}");
     assert!(small[0] > 0.1, "degenerate triangle: {}", small[0]);
 }
+
+#[test]
+fn seed_walk_finds_the_same_nearest_seed_as_a_full_scan() {
+    // The greedy walk over the seeds' neighbour lists must end where a scan
+    // of all seeds does (it does on a Delaunay graph); start it from the
+    // answer for a point a few degrees away, as the relaxation does.
+    let field = fold_field(&params(2_000, Hemi::Left), 12);
+    let mut rng = Rng::new(12);
+    for _ in 0..20_000 {
+        let u = rng.unit_vector();
+        let v = jitter(&mut rng, u, 4.0);
+        let (_, hint) = field.depth_near(v, None);
+        let (d_walk, n_walk) = field.depth_near(u, Some(hint));
+        let (d_scan, n_scan) = field.depth_near(u, None);
+        assert_eq!(n_walk, n_scan);
+        assert_eq!(d_walk.to_bits(), d_scan.to_bits());
+    }
+}
