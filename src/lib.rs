@@ -14,6 +14,7 @@ pub mod inspect;
 pub mod io;
 pub mod mesh;
 pub mod repair;
+pub mod synth;
 
 pub use error::{Error, Result};
 pub use mesh::TriMesh;
