@@ -11,6 +11,7 @@
 
 pub mod error;
 pub mod io;
+pub mod map;
 pub mod mesh;
 
 pub use error::{Error, Result};
