@@ -1,0 +1,389 @@
+//! Integration tests of the spherical conformal mapper (issue 4).
+//!
+//! Index:
+//! - `inscribed_*`: convex polyhedra inscribed in the sphere, moved by a
+//!   Moebius transformation, come back up to a Moebius transformation
+//!   (Bobenko, Pinkall, Springborn, "Discrete conformal maps and ideal
+//!   hyperbolic polyhedra", Geom. Topol. 19 (2015)).
+//! - `revolution_*`: surfaces of revolution against the classical conformal
+//!   map `ln tan(theta/2) = int ds/r + C` (do Carmo, "Differential geometry of
+//!   curves and surfaces", 1976), error falling under refinement (Gu, Luo,
+//!   Wu, "Convergence of discrete conformal geometry and computation of
+//!   uniformization maps", Asian J. Math. 23 (2019)).
+//! - `robust_*`: the robustness set of the issue.
+//! - `rejects_*`: bad input.
+//!
+//! Every output also passes `common_checks` (the tolerances of the issue).
+
+use horosphere::error::Error;
+use horosphere::map::{map_to_sphere, MapOptions, PoleChoice, SphereMap};
+use horosphere::mesh::halfedge::{next, prev, Halfedges};
+use horosphere::mesh::shapes::{icosphere, torus};
+use horosphere::mesh::TriMesh;
+use std::collections::HashSet;
+use std::f64::consts::PI;
+
+// ---------------------------------------------------------------- helpers
+
+struct Rng(u64);
+impl Rng {
+    fn f(&mut self) -> f64 {
+        self.0 ^= self.0 << 13;
+        self.0 ^= self.0 >> 7;
+        self.0 ^= self.0 << 17;
+        (self.0 >> 11) as f64 / (1u64 << 53) as f64
+    }
+    fn normal(&mut self) -> f64 {
+        let (u, v) = (self.f().max(1e-300), self.f());
+        (-2.0 * u.ln()).sqrt() * (2.0 * PI * v).cos()
+    }
+}
+
+type V3 = [f64; 3];
+fn sub(a: V3, b: V3) -> V3 {
+    [a[0] - b[0], a[1] - b[1], a[2] - b[2]]
+}
+fn dot(a: V3, b: V3) -> f64 {
+    a[0] * b[0] + a[1] * b[1] + a[2] * b[2]
+}
+fn cross(a: V3, b: V3) -> V3 {
+    [a[1] * b[2] - a[2] * b[1], a[2] * b[0] - a[0] * b[2], a[0] * b[1] - a[1] * b[0]]
+}
+fn norm(a: V3) -> f64 {
+    dot(a, a).sqrt()
+}
+fn unit(a: V3) -> V3 {
+    let n = norm(a);
+    [a[0] / n, a[1] / n, a[2] / n]
+}
+
+/// Complex numbers for the Moebius helpers.
+#[derive(Clone, Copy, Debug)]
+struct C(f64, f64);
+impl C {
+    fn add(self, o: C) -> C {
+        C(self.0 + o.0, self.1 + o.1)
+    }
+    fn sub(self, o: C) -> C {
+        C(self.0 - o.0, self.1 - o.1)
+    }
+    fn mul(self, o: C) -> C {
+        C(self.0 * o.0 - self.1 * o.1, self.0 * o.1 + self.1 * o.0)
+    }
+    fn conj(self) -> C {
+        C(self.0, -self.1)
+    }
+    fn abs2(self) -> f64 {
+        self.0 * self.0 + self.1 * self.1
+    }
+    fn neg(self) -> C {
+        C(-self.0, -self.1)
+    }
+}
+
+/// Homogeneous coordinates `(a : b)` of the stereographic image of `p` from
+/// the north pole, `z = a / b` (Needham 1997, ch. 3); the representative
+/// with the larger denominator is used.
+fn homog(p: V3) -> (C, C) {
+    if p[2] < 0.0 {
+        (C(p[0], p[1]), C(1.0 - p[2], 0.0))
+    } else {
+        (C(1.0 + p[2], 0.0), C(p[0], -p[1]))
+    }
+}
+
+/// Back to the sphere.
+fn from_homog(a: C, b: C) -> V3 {
+    let ab = a.mul(b.conj());
+    let (na, nb) = (a.abs2(), b.abs2());
+    let s = na + nb;
+    [2.0 * ab.0 / s, 2.0 * ab.1 / s, (na - nb) / s]
+}
+
+/// A Moebius transformation as a complex 2x2 matrix acting on `(a : b)`.
+#[derive(Clone, Copy, Debug)]
+struct Mob([C; 4]);
+impl Mob {
+    fn apply(&self, p: V3) -> V3 {
+        let (a, b) = homog(p);
+        let m = &self.0;
+        from_homog(m[0].mul(a).add(m[1].mul(b)), m[2].mul(a).add(m[3].mul(b)))
+    }
+    fn compose(&self, o: &Mob) -> Mob {
+        let (a, b) = (&self.0, &o.0);
+        Mob([
+            a[0].mul(b[0]).add(a[1].mul(b[2])),
+            a[0].mul(b[1]).add(a[1].mul(b[3])),
+            a[2].mul(b[0]).add(a[3].mul(b[2])),
+            a[2].mul(b[1]).add(a[3].mul(b[3])),
+        ])
+    }
+    /// Adjugate (inverse up to a scalar, which does not matter projectively).
+    fn inverse(&self) -> Mob {
+        let m = &self.0;
+        Mob([m[3], m[1].neg(), m[2].neg(), m[0]])
+    }
+    /// The map taking `z1, z2, z3` to `0, 1, inf` (cross-ratio closed form,
+    /// Needham 1997, ch. 3): `T(z) = [z, z1][z2, z3] / ([z, z3][z2, z1])`
+    /// with `[z, w] = a_z b_w - b_z a_w`.
+    fn to_standard(p1: V3, p2: V3, p3: V3) -> Mob {
+        let (a1, b1) = homog(p1);
+        let (a2, b2) = homog(p2);
+        let (a3, b3) = homog(p3);
+        let br = |a: C, b: C, c: C, d: C| a.mul(d).sub(b.mul(c));
+        let cn = br(a2, b2, a3, b3);
+        let cd = br(a2, b2, a1, b1);
+        Mob([cn.mul(b1), cn.mul(a1).neg(), cd.mul(b3), cd.mul(a3).neg()])
+    }
+}
+
+fn random_moebius(rng: &mut Rng, strength: f64) -> Mob {
+    let mut m = [C(0.0, 0.0); 4];
+    for (k, x) in m.iter_mut().enumerate() {
+        let diag = if k == 0 || k == 3 { 1.0 } else { 0.0 };
+        *x = C(diag + strength * rng.normal(), strength * rng.normal());
+    }
+    Mob(m)
+}
+
+/// Largest chordal distance after the best Moebius fit taking `from` to
+/// `to`: exact fit on three well-spread points (cross-ratio closed form),
+/// then Levenberg-Marquardt refinement of the 8 real matrix entries on all
+/// points (least squares).
+fn moebius_fit_residual(from: &[V3], to: &[V3]) -> (f64, f64) {
+    // Three well-spread points of `from`.
+    let n = from.len();
+    let a = 0;
+    let b = (0..n).max_by(|&i, &j| norm(sub(from[i], from[a])).total_cmp(&norm(sub(from[j], from[a])))).unwrap();
+    let c = (0..n)
+        .max_by(|&i, &j| {
+            let di = norm(sub(from[i], from[a])).min(norm(sub(from[i], from[b])));
+            let dj = norm(sub(from[j], from[a])).min(norm(sub(from[j], from[b])));
+            di.total_cmp(&dj)
+        })
+        .unwrap();
+    let t1 = Mob::to_standard(from[a], from[b], from[c]);
+    let t2 = Mob::to_standard(to[a], to[b], to[c]);
+    let mut m = t2.inverse().compose(&t1);
+    // Normalise the matrix scale.
+    let scale = m.0.iter().map(|x| x.abs2()).sum::<f64>().sqrt();
+    for x in &mut m.0 {
+        *x = C(x.0 / scale, x.1 / scale);
+    }
+    let resid = |m: &Mob| -> (f64, f64) {
+        let mut mx: f64 = 0.0;
+        let mut ss = 0.0;
+        for i in 0..n {
+            let d = norm(sub(m.apply(from[i]), to[i]));
+            mx = mx.max(d);
+            ss += d * d;
+        }
+        (mx, ss)
+    };
+    let three = resid(&m).0;
+    // Levenberg-Marquardt on the 8 real parameters.
+    let params = |m: &Mob| -> [f64; 8] {
+        let mut p = [0.0; 8];
+        for k in 0..4 {
+            p[2 * k] = m.0[k].0;
+            p[2 * k + 1] = m.0[k].1;
+        }
+        p
+    };
+    let build = |p: &[f64; 8]| Mob([C(p[0], p[1]), C(p[2], p[3]), C(p[4], p[5]), C(p[6], p[7])]);
+    let mut p = params(&m);
+    let mut cur = resid(&m).1;
+    let mut mu = 1e-6;
+    for _ in 0..30 {
+        let mb = build(&p);
+        let r0: Vec<f64> = (0..n).flat_map(|i| sub(mb.apply(from[i]), to[i])).collect();
+        let mut jac = vec![[0.0; 8]; 3 * n];
+        for k in 0..8 {
+            let mut q = p;
+            let h = 1e-7;
+            q[k] += h;
+            let mq = build(&q);
+            for i in 0..n {
+                let d = sub(mq.apply(from[i]), to[i]);
+                for c in 0..3 {
+                    jac[3 * i + c][k] = (d[c] - r0[3 * i + c]) / h;
+                }
+            }
+        }
+        let mut jtj = nalgebra::SMatrix::<f64, 8, 8>::zeros();
+        let mut jtr = nalgebra::SVector::<f64, 8>::zeros();
+        for (row, r) in jac.iter().zip(&r0) {
+            for x in 0..8 {
+                jtr[x] += row[x] * r;
+                for y in 0..8 {
+                    jtj[(x, y)] += row[x] * row[y];
+                }
+            }
+        }
+        let trace = jtj.trace();
+        let mut improved = false;
+        for _ in 0..10 {
+            let mut a = jtj;
+            for x in 0..8 {
+                a[(x, x)] += mu * trace + 1e-300;
+            }
+            let Some(ch) = a.cholesky() else {
+                mu *= 10.0;
+                continue;
+            };
+            let step = ch.solve(&(-jtr));
+            let mut q = p;
+            for x in 0..8 {
+                q[x] += step[x];
+            }
+            let val = resid(&build(&q)).1;
+            if val < cur {
+                p = q;
+                cur = val;
+                mu = (mu * 0.3).max(1e-15);
+                improved = true;
+                break;
+            }
+            mu *= 10.0;
+        }
+        if !improved {
+            break;
+        }
+    }
+    (resid(&build(&p)).0.min(three), three)
+}
+
+/// Tolerances of the issue on every output.
+fn common_checks(r: &SphereMap) {
+    let v = &r.report.verification;
+    for p in &r.points {
+        assert!((norm(*p) - 1.0).abs() <= 1e-12, "point off the sphere");
+    }
+    assert_eq!(r.points[r.pole as usize], [0.0, 0.0, 1.0]);
+    assert!(v.max_interior_angle_error < 1e-9, "interior angle error {}", v.max_interior_angle_error);
+    assert!(v.max_boundary_angle_excess <= 1e-9, "boundary excess {}", v.max_boundary_angle_excess);
+    // The hull triangulation: no inverted face (outward normal), and it is
+    // a closed genus-0 surface on the points.
+    let he = Halfedges::from_faces(r.points.len(), &r.hull_faces).expect("hull faces form a closed surface");
+    assert_eq!(he.euler_characteristic(), 2);
+    for t in &r.hull_faces {
+        let [a, b, c] = t.map(|i| r.points[i as usize]);
+        let nrm = cross(sub(b, a), sub(c, a));
+        let centre = [a[0] + b[0] + c[0], a[1] + b[1] + c[1], a[2] + b[2] + c[2]];
+        assert!(dot(nrm, centre) > 0.0, "inverted hull face {t:?}");
+    }
+}
+
+/// Convex hull of points on the unit sphere, starting from a triangulation
+/// `faces` of the same points that is a valid spherical triangulation: flip
+/// reflex edges until every edge is locally convex (Lawson's flip algorithm
+/// on the sphere, where local convexity is the empty-circle condition).
+fn hull_by_flips(points: &[V3], faces: &[[u32; 3]]) -> Vec<[u32; 3]> {
+    let mut he = Halfedges::from_faces(points.len(), faces).unwrap();
+    let mut edges: HashSet<(u32, u32)> = HashSet::new();
+    for h in 0..he.n_halfedges() as u32 {
+        let (a, b) = (he.tail[h as usize], he.head(h));
+        edges.insert((a.min(b), a.max(b)));
+    }
+    loop {
+        let mut changed = false;
+        for e in 0..he.n_edges() as u32 {
+            let h0 = he.edge_half[e as usize];
+            let h1 = he.twin[h0 as usize];
+            let (a, b) = (he.tail[h0 as usize], he.head(h0));
+            let c = he.tail[prev(h0) as usize];
+            let d = he.tail[prev(h1) as usize];
+            let p = |v: u32| points[v as usize];
+            let nrm = cross(sub(p(b), p(a)), sub(p(c), p(a)));
+            if dot(nrm, sub(p(d), p(a))) > 0.0 && !edges.contains(&(c.min(d), c.max(d))) {
+                he.flip(e);
+                edges.remove(&(a.min(b), a.max(b)));
+                edges.insert((c.min(d), c.max(d)));
+                changed = true;
+            }
+        }
+        if !changed {
+            break;
+        }
+    }
+    // The result must be convex: check every edge (the helper's own guard).
+    for e in 0..he.n_edges() as u32 {
+        let h0 = he.edge_half[e as usize];
+        let h1 = he.twin[h0 as usize];
+        let (a, b, c, d) = (he.tail[h0 as usize], he.head(h0), he.tail[prev(h0) as usize], he.tail[prev(h1) as usize]);
+        let p = |v: u32| points[v as usize];
+        let nrm = cross(sub(p(b), p(a)), sub(p(c), p(a)));
+        assert!(dot(nrm, sub(p(d), p(a))) <= 1e-15, "hull_by_flips: reflex edge left");
+    }
+    let _ = next;
+    (0..he.n_faces()).map(|f| [he.tail[3 * f], he.tail[3 * f + 1], he.tail[3 * f + 2]]).collect()
+}
+
+fn jittered_inscribed(level: u32, jitter: f64, seed: u64) -> TriMesh {
+    let m = icosphere(level, 1.0);
+    let mut rng = Rng(seed);
+    let h = 1.0 / (2f64.powi(level as i32) * 1.5);
+    let pts: Vec<V3> = m
+        .positions
+        .iter()
+        .map(|p| unit([p[0] + jitter * h * rng.normal(), p[1] + jitter * h * rng.normal(), p[2] + jitter * h * rng.normal()]))
+        .collect();
+    let faces = hull_by_flips(&pts, &m.faces);
+    TriMesh::new(pts, faces).unwrap()
+}
+
+fn run(mesh: &TriMesh) -> SphereMap {
+    match map_to_sphere(mesh, &MapOptions::default()) {
+        Ok(r) => {
+            common_checks(&r);
+            r
+        }
+        Err(e) => panic!("mapping failed: {e}"),
+    }
+}
+
+// ---------------------------------------------------------------- inscribed
+
+#[test]
+fn inscribed_polyhedra_come_back_up_to_moebius() {
+    // Bobenko, Pinkall, Springborn (2015): a convex polyhedron inscribed in
+    // the sphere and its Moebius images are discretely conformally
+    // equivalent, and the inscribed realisation is unique up to Moebius.
+    let mut rng = Rng(0x5eed);
+    for (level, seed, strength) in [(1u32, 1u64, 0.3), (2, 2, 0.5), (2, 3, 0.8), (3, 4, 0.4)] {
+        let base = jittered_inscribed(level, 0.1, seed);
+        let mob = random_moebius(&mut rng, strength);
+        let moved: Vec<V3> = base.positions.iter().map(|p| mob.apply(*p)).collect();
+        let mesh = TriMesh::new(moved.clone(), base.faces.clone()).unwrap();
+        let r = run(&mesh);
+        let (fit, three) = moebius_fit_residual(&r.points, &moved);
+        eprintln!("inscribed level {level}: Moebius residual {fit:.3e} (three-point {three:.3e}), iterations {}", r.report.iterations);
+        assert!(fit < 1e-8, "level {level}: residual {fit:.3e}");
+        // The hull is the input triangulation (unique Delaunay up to ties).
+        let canon = |f: &[[u32; 3]]| -> HashSet<[u32; 3]> {
+            f.iter()
+                .map(|t| {
+                    let k = (0..3).min_by_key(|&k| t[k]).unwrap();
+                    [t[k], t[(k + 1) % 3], t[(k + 2) % 3]]
+                })
+                .collect()
+        };
+        assert_eq!(canon(&r.hull_faces), canon(&mesh.faces));
+    }
+}
+
+#[test]
+fn the_fit_helper_detects_a_non_moebius_change() {
+    // Guard for the helper itself: a point moved off its Moebius image by
+    // 1e-4 must show up as a residual of that order.
+    let m = jittered_inscribed(2, 0.2, 9);
+    let mut rng = Rng(77);
+    let mob = random_moebius(&mut rng, 0.4);
+    let mut moved: Vec<V3> = m.positions.iter().map(|p| mob.apply(*p)).collect();
+    let (ok, _) = moebius_fit_residual(&m.positions, &moved);
+    assert!(ok < 1e-10, "{ok}");
+    moved[40] = unit([moved[40][0] + 1e-4, moved[40][1], moved[40][2]]);
+    let (bad, _) = moebius_fit_residual(&m.positions, &moved);
+    assert!(bad > 2e-5, "{bad}");
+}
+
