@@ -373,6 +373,31 @@ fn inscribed_polyhedra_come_back_up_to_moebius() {
 }
 
 #[test]
+fn both_starting_points_reach_the_same_polyhedron() {
+    // The solution is unique up to Moebius (Springborn 2020): starting on the
+    // bounds (uniformization.md section 5) or from the input metric must
+    // give the same points (same pole, same normalisation).
+    let m = jittered_inscribed(2, 0.1, 12);
+    let mut rng = Rng(4);
+    let mob = random_moebius(&mut rng, 0.5);
+    let moved: Vec<V3> = m.positions.iter().map(|p| mob.apply(*p)).collect();
+    let mut bumpy = moved.clone();
+    for p in &mut bumpy {
+        let s = 1.0 + 0.2 * rng.f();
+        *p = [p[0] * s, p[1] * s, p[2] * s];
+    }
+    let mesh = TriMesh::new(bumpy, m.faces.clone()).unwrap();
+    let a = run(&mesh);
+    let mut opts = MapOptions::default();
+    opts.solver.start = horosphere::map::solver::Start::Bounds;
+    let b = map_to_sphere(&mesh, &opts).unwrap();
+    common_checks(&b);
+    let worst = a.points.iter().zip(&b.points).map(|(p, q)| norm(sub(*p, *q))).fold(0.0, f64::max);
+    assert!(worst < 1e-9, "{worst}");
+    assert!(b.report.iterations >= a.report.iterations);
+}
+
+#[test]
 fn the_fit_helper_detects_a_non_moebius_change() {
     // Guard for the helper itself: a point moved off its Moebius image by
     // 1e-4 must show up as a residual of that order.
@@ -554,4 +579,200 @@ fn revolution_surfaces_converge_to_the_classical_map() {
         std::fs::create_dir_all(&dir).unwrap();
         std::fs::write(&path, serde_json::to_string_pretty(&artifacts).unwrap()).unwrap();
     }
+}
+
+// ---------------------------------------------------------------- robustness
+
+/// A folded sphere: radial displacement by a sum of smooth waves, the
+/// stand-in for a synthetic cortex.
+fn folded_sphere(level: u32, amplitude: f64, seed: u64) -> TriMesh {
+    let mut m = icosphere(level, 1.0);
+    let mut rng = Rng(seed);
+    let waves: Vec<(V3, f64, f64)> = (0..12)
+        .map(|_| (unit([rng.normal(), rng.normal(), rng.normal()]), 4.0 + 8.0 * rng.f(), 2.0 * PI * rng.f()))
+        .collect();
+    for p in &mut m.positions {
+        let mut r = 1.0;
+        for (d, k, ph) in &waves {
+            r += amplitude / waves.len() as f64 * 3.0 * (k * dot(*p, *d) + ph).sin();
+        }
+        *p = [p[0] * r, p[1] * r * 1.2, p[2] * r * 0.9];
+    }
+    m
+}
+
+#[test]
+fn robust_noisy_bumpy_sphere_with_slivers_and_needles() {
+    let mut m = icosphere(3, 1.0);
+    let mut rng = Rng(21);
+    for p in &mut m.positions {
+        let r = 1.0 + 0.3 * (rng.f() - 0.5);
+        *p = [p[0] * r, p[1] * r, p[2] * r];
+    }
+    // Slivers: move some vertices almost onto the midpoint of one of their
+    // edges (needles and caps around them).
+    let faces = m.faces.clone();
+    for (k, t) in faces.iter().enumerate().step_by(9) {
+        let (a, b) = (t[0] as usize, t[1] as usize);
+        if k % 2 == 0 {
+            let (pa, pb) = (m.positions[a], m.positions[b]);
+            m.positions[a] = [pb[0] + 1e-3 * (pa[0] - pb[0]), pb[1] + 1e-3 * (pa[1] - pb[1]), pb[2] + 1e-3 * (pa[2] - pb[2])];
+        }
+    }
+    let r = run(&m);
+    assert!(r.report.flips_delaunay > 0);
+}
+
+#[test]
+fn robust_edge_length_ratio_1000() {
+    // A Moebius image of an inscribed polyhedron with strong dilation: edge
+    // lengths range over more than 1000:1; still inscribed and convex, so
+    // the output must again match up to Moebius.
+    let base = jittered_inscribed(3, 0.1, 31);
+    let k = 80.0f64.sqrt();
+    let mob = Mob([C(k, 0.0), C(0.0, 0.0), C(0.0, 0.0), C(1.0 / k, 0.0)]);
+    let moved: Vec<V3> = base.positions.iter().map(|p| mob.apply(*p)).collect();
+    let mesh = TriMesh::new(moved.clone(), base.faces.clone()).unwrap();
+    let lens: Vec<f64> = mesh.faces.iter().flat_map(|t| (0..3).map(move |k| (t[k], t[(k + 1) % 3]))).map(|(a, b)| norm(sub(moved[a as usize], moved[b as usize]))).collect();
+    let ratio = lens.iter().cloned().fold(0.0, f64::max) / lens.iter().cloned().fold(f64::INFINITY, f64::min);
+    assert!(ratio > 1000.0, "ratio {ratio}");
+    let r = run(&mesh);
+    let (fit, _) = moebius_fit_residual(&r.points, &moved);
+    assert!(fit < 1e-8, "{fit}");
+    // Also with bumps (no longer inscribed): converges.
+    let mut rng = Rng(5);
+    let bumpy: Vec<V3> = moved.iter().map(|p| {
+        let s = 1.0 + 0.05 * rng.f();
+        [p[0] * s, p[1] * s, p[2] * s]
+    }).collect();
+    run(&TriMesh::new(bumpy, base.faces.clone()).unwrap());
+}
+
+#[test]
+fn robust_ellipsoid_10_to_1() {
+    let mut m = icosphere(3, 1.0);
+    for p in &mut m.positions {
+        p[2] *= 10.0;
+    }
+    run(&m);
+}
+
+#[test]
+fn robust_strongly_non_delaunay_triangulation() {
+    // Random combinatorial flips of a bumpy sphere's triangulation (keeping
+    // an indexed manifold mesh): long thin triangles everywhere.
+    let m = folded_sphere(3, 0.1, 3);
+    let mut he = Halfedges::from_faces(m.n_vertices(), &m.faces).unwrap();
+    let mut edges: HashSet<(u32, u32)> = HashSet::new();
+    for h in 0..he.n_halfedges() as u32 {
+        let (a, b) = (he.tail[h as usize], he.head(h));
+        edges.insert((a.min(b), a.max(b)));
+    }
+    let mut rng = Rng(99);
+    let mut flips = 0;
+    for _ in 0..4 * he.n_edges() {
+        let e = (rng.f() * he.n_edges() as f64) as u32;
+        let h0 = he.edge_half[e as usize];
+        let h1 = he.twin[h0 as usize];
+        let (a, b) = (he.tail[h0 as usize], he.head(h0));
+        let (c, d) = (he.tail[prev(h0) as usize], he.tail[prev(h1) as usize]);
+        if c != d && he.degree(a) > 3 && he.degree(b) > 3 && !edges.contains(&(c.min(d), c.max(d))) && he.flip(e) {
+            edges.remove(&(a.min(b), a.max(b)));
+            edges.insert((c.min(d), c.max(d)));
+            flips += 1;
+        }
+    }
+    assert!(flips > 1000);
+    let faces: Vec<[u32; 3]> = (0..he.n_faces()).map(|f| [he.tail[3 * f], he.tail[3 * f + 1], he.tail[3 * f + 2]]).collect();
+    let mesh = TriMesh::new(m.positions.clone(), faces).unwrap();
+    let r = run(&mesh);
+    assert!(r.report.flips_delaunay > 500, "{}", r.report.flips_delaunay);
+}
+
+#[test]
+fn robust_folded_surfaces_and_every_pole_rule() {
+    for (level, amp, seed) in [(3u32, 0.15, 1u64), (4, 0.2, 2), (4, 0.3, 3)] {
+        let m = folded_sphere(level, amp, seed);
+        let r = run(&m);
+        eprintln!(
+            "folded level {level} amp {amp}: {} iterations, boundary {}, inverted {}, angle distortion p50 {:.3}",
+            r.report.iterations, r.report.boundary_vertices, r.report.inverted_faces, r.report.angle_distortion.p50
+        );
+    }
+    // A forced pole and a restricted candidate list.
+    let m = folded_sphere(3, 0.15, 4);
+    let opts = MapOptions {
+        pole: PoleChoice::Vertex(17),
+        ..MapOptions::default()
+    };
+    let r = map_to_sphere(&m, &opts).unwrap();
+    common_checks(&r);
+    assert_eq!(r.pole, 17);
+    let opts = MapOptions {
+        pole: PoleChoice::Among(vec![100, 200, 300]),
+        ..MapOptions::default()
+    };
+    let r = map_to_sphere(&m, &opts).unwrap();
+    common_checks(&r);
+    assert!([100, 200, 300].contains(&r.pole));
+}
+
+#[test]
+fn deterministic_output() {
+    let m = folded_sphere(3, 0.2, 8);
+    let a = map_to_sphere(&m, &MapOptions::default()).unwrap();
+    let b = map_to_sphere(&m, &MapOptions::default()).unwrap();
+    assert_eq!(a.points, b.points);
+    assert_eq!(a.hull_faces, b.hull_faces);
+}
+
+// ---------------------------------------------------------------- bad input
+
+fn expect_not_ready(m: &TriMesh, needle: &str) {
+    match map_to_sphere(m, &MapOptions::default()) {
+        Err(Error::NotReady(msg)) => {
+            assert!(msg.contains(needle), "{msg}");
+            assert!(msg.contains("horosphere inspect") && msg.contains("horosphere repair"), "{msg}");
+        }
+        Err(e) => panic!("expected NotReady, got {e}"),
+        Ok(_) => panic!("expected an error"),
+    }
+}
+
+#[test]
+fn rejects_bad_surfaces() {
+    let base = icosphere(2, 1.0);
+    // Open.
+    let mut m = base.clone();
+    m.faces.pop();
+    expect_not_ready(&m, "not closed");
+    // Two components.
+    let mut m = base.clone();
+    let n = m.n_vertices() as u32;
+    m.positions.extend(base.positions.iter().map(|p| [p[0] + 5.0, p[1], p[2]]));
+    m.faces.extend(base.faces.iter().map(|t| [t[0] + n, t[1] + n, t[2] + n]));
+    expect_not_ready(&m, "2 connected components");
+    // Genus 1.
+    expect_not_ready(&torus(3.0, 1.0, 24, 12), "genus 1");
+    // Non-manifold edge: a fin face on an existing edge.
+    let mut m = base.clone();
+    let t = m.faces[0];
+    m.positions.push([2.0, 2.0, 2.0]);
+    m.faces.push([t[0], t[1], n]);
+    expect_not_ready(&m, "not a 2-manifold");
+    // Zero-length edge: two vertices at one position.
+    let mut m = base.clone();
+    let t = m.faces[3];
+    m.positions[t[1] as usize] = m.positions[t[0] as usize];
+    expect_not_ready(&m, "length 0");
+    // NaN coordinate.
+    let mut m = base.clone();
+    m.positions[5][1] = f64::NAN;
+    expect_not_ready(&m, "non-finite");
+    // A pole outside the mesh is invalid input, not a panic.
+    let opts = MapOptions {
+        pole: PoleChoice::Vertex(1_000_000),
+        ..MapOptions::default()
+    };
+    assert!(matches!(map_to_sphere(&base, &opts), Err(Error::Invalid(_))));
 }

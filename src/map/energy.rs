@@ -85,17 +85,25 @@ pub fn gradient(theta: &[f64], sums: &[f64], var: &[u32], g: &mut [f64]) {
 }
 
 /// Cotangent weight `(cot a + cot b)/2` of the edge of halfedge `h`. With a
-/// finite `clip`, each cotangent is first clipped to `[-clip, clip]` and the
-/// weight to `>= 0`: near-degenerate Delaunay triangles (angles `pi` and `0`
-/// across an edge) then give a zero weight instead of `-inf + inf`, and the
-/// Newton matrix stays positive semi-definite. `clip = inf` gives the exact
-/// weight.
+/// finite `clip`, each cotangent *in a triangle with a corner at `pole`* is
+/// first clipped to `[-clip, clip]` (the pole triangles are extremely thin
+/// and their weights explode; the input's own thin triangles keep their
+/// exact weights), and the weight is clipped to `>= 0`, so near-degenerate
+/// Delaunay triangles (angles `pi` and `0` across an edge) give a zero
+/// weight instead of `-inf + inf` and the Newton matrix stays positive
+/// semi-definite. `clip = inf` gives the exact weight.
 #[inline]
-pub fn edge_weight(intr: &Intrinsic, cot: &[f64], h: u32, clip: f64) -> f64 {
+pub fn edge_weight(intr: &Intrinsic, cot: &[f64], h: u32, clip: f64, pole: u32) -> f64 {
     let t = intr.he.twin[h as usize];
     let (c1, c2) = (cot[h as usize], cot[t as usize]);
     if clip.is_finite() {
-        (0.5 * (c1.clamp(-clip, clip) + c2.clamp(-clip, clip))).max(0.0)
+        let touches = |x: u32| {
+            let f = 3 * (x / 3) as usize;
+            intr.he.tail[f] == pole || intr.he.tail[f + 1] == pole || intr.he.tail[f + 2] == pole
+        };
+        let c1 = if touches(h) { c1.clamp(-clip, clip) } else { c1.clamp(-1e6, 1e6) };
+        let c2 = if touches(t) { c2.clamp(-clip, clip) } else { c2.clamp(-1e6, 1e6) };
+        (0.5 * (c1 + c2)).max(0.0)
     } else {
         0.5 * (c1 + c2)
     }
@@ -103,13 +111,15 @@ pub fn edge_weight(intr: &Intrinsic, cot: &[f64], h: u32, clip: f64) -> f64 {
 
 /// Lower-triangle triplets of the Hessian restricted to the unknowns
 /// (`var[v]` is the unknown's index or [`FIXED`]), with cotangent weights
-/// clipped at `clip` and `shift` added to the diagonal.
+/// clipped at `clip` in the triangles at `pole` (see [`edge_weight`]) and
+/// `shift` added to the diagonal.
 pub fn hessian_entries(
     intr: &Intrinsic,
     cot: &[f64],
     var: &[u32],
     clip: f64,
     shift: f64,
+    pole: u32,
     out: &mut Vec<(u32, u32, f64)>,
 ) {
     let he = &intr.he;
@@ -125,7 +135,7 @@ pub fn hessian_entries(
         if a == b {
             continue;
         }
-        let w = edge_weight(intr, cot, h, clip);
+        let w = edge_weight(intr, cot, h, clip, pole);
         let (ia, ib) = (var[a as usize], var[b as usize]);
         if ia != FIXED {
             out.push((ia, ia, w));
@@ -210,7 +220,7 @@ mod tests {
         assert!(worst_g < 1e-6, "gradient vs finite differences: {worst_g}");
         // Hessian times a random direction against differences of the gradient.
         let mut entries = Vec::new();
-        hessian_entries(&x, &ev.cot, &var, f64::INFINITY, 0.0, &mut entries);
+        hessian_entries(&x, &ev.cot, &var, f64::INFINITY, 0.0, pole, &mut entries);
         let mut spd = SparseSpd::default();
         let dir: Vec<f64> = (0..n).map(|v| if v as u32 == pole { 0.0 } else { rng.f() - 0.5 }).collect();
         // Assemble via the solver's matrix product (the pole row is empty:

@@ -170,17 +170,22 @@ pub fn triangle_angles(lam: [f64; 3]) -> TriangleAngles {
 
 /// `(B^2 + C^2 - A^2) / (B C)` (twice the cosine of the angle opposite `A`)
 /// from log lengths, and the size of its terms for a relative tolerance.
+///
+/// Written as `D_A P / (B C) - 2` with the slack `D_A = B + C - A` and
+/// `P = A + B + C`: the slack is formed from `expm1` of a log-length
+/// difference, so caps and needles keep full precision and the only
+/// subtraction is the final `- 2` (absolute error of a few ulps of 2).
 #[inline(always)]
 fn two_cos(lam_a: f64, lam_b: f64, lam_c: f64) -> (f64, f64) {
-    let d = 0.5 * (lam_b - lam_c);
-    let g = lam_a - 0.5 * (lam_b + lam_c);
-    // B/C + C/B - A^2/(BC) = 2 cosh(d) - e^g, written so that the exact
-    // cancellation near a right angle happens on numbers of size 2.
-    let t1 = d.exp_m1() + (-d).exp_m1(); // 2 cosh d - 2 >= 0
-    let t2 = g.exp_m1(); // e^g - 1
-    let val = t1 - t2 + 1.0;
-    let size = t1.abs() + t2.abs() + 1.0;
-    (val, size)
+    let m = lam_a.max(lam_b).max(lam_c);
+    let a = (0.5 * (lam_a - m)).exp();
+    let b = (0.5 * (lam_b - m)).exp();
+    let c = (0.5 * (lam_c - m)).exp();
+    // D_A = (X - A) + Y with X the larger of B and C.
+    let (lx, y) = if lam_b >= lam_c { (lam_b, c) } else { (lam_c, b) };
+    let d_a = a * (0.5 * (lx - lam_a)).exp_m1() + y;
+    let q = d_a * (a + b + c) / (b * c);
+    (q - 2.0, q.abs() + 2.0)
 }
 
 impl Intrinsic {

@@ -16,7 +16,8 @@
 //! equations are solved by sparse Cholesky. Unlike unfolding triangle by
 //! triangle along a tree, the error does not accumulate across scales.
 //! What stays true: the planar points are normalised (centroid at 0, unit
-//! RMS radius: a similarity, hence a Moebius map), and the output faces keep
+//! RMS radius, the lowest-numbered vertex off the centre on the positive x
+//! axis: a similarity, hence a Moebius map), and the output faces keep
 //! the input's orientation (counter-clockwise seen from outside).
 //! Stereographic projection is conformal and maps circles to circles
 //! (Needham, "Visual complex analysis", 1997, ch. 3).
@@ -127,22 +128,61 @@ pub fn layout_disk(tri: &Intrinsic, s: &Scaling) -> Result<Layout> {
         spd.solve(&mut rhs)?;
     }
     let mut z = pinned;
-    for v in 0..n {
-        let i = idx[v];
-        if i != u32::MAX {
-            z[v] = [rhs[2 * i as usize], rhs[2 * i as usize + 1]];
+    let scatter = |z: &mut Vec<[f64; 2]>, x: &[f64], add: bool| {
+        for (v, zv) in z.iter_mut().enumerate() {
+            let i = idx[v];
+            if i != u32::MAX {
+                let (a, b) = (x[2 * i as usize], x[2 * i as usize + 1]);
+                *zv = if add { [zv[0] + a, zv[1] + b] } else { [a, b] };
+            }
         }
-    }
-    // Residual of every equation.
-    let mut residual: f64 = 0.0;
-    for &f in &disk {
-        let mut acc = [0.0, 0.0];
-        for (v, c) in eq(f) {
-            let zv = z[v as usize];
-            acc[0] += c[0] * zv[0] - c[1] * zv[1];
-            acc[1] += c[1] * zv[0] + c[0] * zv[1];
+    };
+    scatter(&mut z, &rhs, false);
+    // Residual of every equation; `atr` collects A^T r for the refinement.
+    let residuals = |z: &[[f64; 2]], atr: &mut Vec<f64>| -> f64 {
+        atr.iter_mut().for_each(|x| *x = 0.0);
+        let mut worst: f64 = 0.0;
+        for &f in &disk {
+            let cf = eq(f);
+            let mut acc = [0.0, 0.0];
+            for &(v, c) in &cf {
+                let zv = z[v as usize];
+                acc[0] += c[0] * zv[0] - c[1] * zv[1];
+                acc[1] += c[1] * zv[0] + c[0] * zv[1];
+            }
+            worst = worst.max(acc[0].hypot(acc[1]));
+            // r = -acc; A^T r per unknown: C_j^T r.
+            for &(v, c) in &cf {
+                let i = idx[v as usize];
+                if i != u32::MAX {
+                    atr[2 * i as usize] -= c[0] * acc[0] + c[1] * acc[1];
+                    atr[2 * i as usize + 1] -= -c[1] * acc[0] + c[0] * acc[1];
+                }
+            }
         }
-        residual = residual.max(acc[0].hypot(acc[1]));
+        worst
+    };
+    // Iterative refinement with the same factor (corrected semi-normal
+    // equations): each step removes the error the squared condition number
+    // of the normal equations let in (Bjorck, "Numerical methods for least
+    // squares problems", SIAM 1996, section 2.5).
+    let mut atr = vec![0.0; 2 * m as usize];
+    let mut residual = residuals(&z, &mut atr);
+    for _ in 0..4 {
+        if m == 0 {
+            break;
+        }
+        spd.solve(&mut atr)?;
+        let mut trial = z.clone();
+        scatter(&mut trial, &atr, true);
+        let mut atr2 = vec![0.0; 2 * m as usize];
+        let r2 = residuals(&trial, &mut atr2);
+        if !(r2 < residual) {
+            break;
+        }
+        z = trial;
+        residual = r2;
+        atr = atr2;
     }
     // Normalise: centroid at the origin, unit RMS radius.
     let count = (n - usize::from(pole != u32::MAX)) as f64;
@@ -169,6 +209,18 @@ pub fn layout_disk(tri: &Intrinsic, s: &Scaling) -> Result<Layout> {
     }
     for (v, zv) in z.iter_mut().enumerate() {
         *zv = if v as u32 == pole { [0.0, 0.0] } else { [(zv[0] - c[0]) * scale, (zv[1] - c[1]) * scale] };
+    }
+    // Rotation: the lowest-numbered vertex off the centre goes on the
+    // positive x axis, so the output does not depend on which triangle was
+    // pinned.
+    if let Some(zr) = z.iter().enumerate().find(|(v, zv)| *v as u32 != pole && zv[0].hypot(zv[1]) > 1e-3).map(|(_, zv)| *zv) {
+        let r = zr[0].hypot(zr[1]);
+        let (cs, sn) = (zr[0] / r, -zr[1] / r);
+        for (v, zv) in z.iter_mut().enumerate() {
+            if v as u32 != pole {
+                *zv = [cs * zv[0] - sn * zv[1], sn * zv[0] + cs * zv[1]];
+            }
+        }
     }
     Ok(Layout {
         z,
