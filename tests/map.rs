@@ -776,3 +776,22 @@ fn rejects_bad_surfaces() {
     };
     assert!(matches!(map_to_sphere(&base, &opts), Err(Error::Invalid(_))));
 }
+
+#[test]
+fn a_failed_solve_keeps_its_iteration_log() {
+    // The issue: a solver that does not converge stops with diagnostics (the
+    // iteration log) and gives no points.
+    let m = folded_sphere(3, 0.2, 5);
+    let mut opts = MapOptions::default();
+    opts.solver.max_iter_per_stage = 2;
+    match horosphere::map::map_to_sphere_diagnosed(&m, &opts) {
+        Ok(_) => panic!("two iterations cannot converge"),
+        Err(f) => {
+            assert!(matches!(f.error, Error::Algorithm { .. }));
+            assert_eq!(f.report.status, "failed");
+            assert_eq!(f.report.iteration_log.len(), 2);
+            assert!(f.report.error.as_deref().unwrap_or("").contains("no convergence"));
+            assert!(f.report.iteration_log[0].max_projected_gradient > f.report.iteration_log[1].max_projected_gradient);
+        }
+    }
+}

@@ -49,6 +49,7 @@ use crate::mesh::{cross, dot, norm, sub, TriMesh};
 use intrinsic::{FlipWork, Intrinsic, Scaling};
 use serde::{Deserialize, Serialize};
 use solver::{IterationRecord, SolverOptions};
+
 use std::time::Instant;
 use verify::{Verification, VerifyTolerances};
 
@@ -133,6 +134,10 @@ impl Percentiles {
 /// The JSON report of one mapping.
 #[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
 pub struct MapReport {
+    /// `"ok"` or `"failed"`.
+    pub status: String,
+    /// The error of a failed mapping.
+    pub error: Option<String>,
     pub vertices: usize,
     pub faces: usize,
     pub pole: u32,
@@ -273,73 +278,100 @@ pub fn choose_pole(mesh: &TriMesh, he: &Halfedges, choice: &PoleChoice) -> Resul
     ))
 }
 
+/// A failed mapping: the error and the report so far (with the iteration
+/// log), for diagnostics. No points.
+#[derive(Debug)]
+pub struct MapFailure {
+    pub error: Error,
+    pub report: MapReport,
+}
+
 /// Map a closed genus-0 surface conformally to the unit sphere.
 pub fn map_to_sphere(mesh: &TriMesh, opts: &MapOptions) -> Result<SphereMap> {
+    map_to_sphere_diagnosed(mesh, opts).map_err(|f| f.error)
+}
+
+/// [`map_to_sphere`], keeping the partial report of a failure.
+pub fn map_to_sphere_diagnosed(mesh: &TriMesh, opts: &MapOptions) -> std::result::Result<SphereMap, Box<MapFailure>> {
+    let mut report = MapReport {
+        status: "failed".into(),
+        vertices: mesh.n_vertices(),
+        faces: mesh.n_faces(),
+        ..MapReport::default()
+    };
+    match run(mesh, opts, &mut report) {
+        Ok((points, pole, hull_faces)) => {
+            report.status = "ok".into();
+            Ok(SphereMap {
+                points,
+                pole,
+                hull_faces,
+                report,
+            })
+        }
+        Err(error) => {
+            report.error = Some(error.to_string());
+            Err(Box::new(MapFailure { error, report }))
+        }
+    }
+}
+
+type Mapped = (Vec<[f64; 3]>, u32, Vec<[u32; 3]>);
+
+fn run(mesh: &TriMesh, opts: &MapOptions, report: &mut MapReport) -> Result<Mapped> {
     let t0 = Instant::now();
-    let mut times = PhaseTimes::default();
     let mut input = check_input(mesh)?;
     let (pole, pole_rule) = choose_pole(mesh, &input.he, &opts.pole)?;
-    times.checks = t0.elapsed().as_secs_f64();
+    report.pole = pole;
+    report.pole_rule = pole_rule;
+    report.times.checks = t0.elapsed().as_secs_f64();
 
     let t = Instant::now();
     let zero = vec![0.0; mesh.n_vertices()];
     let mut work = FlipWork::default();
-    let flips_delaunay = input.flip_to_delaunay(&Scaling::plain(&zero), &mut work)?;
-    times.delaunay = t.elapsed().as_secs_f64();
+    report.flips_delaunay = input.flip_to_delaunay(&Scaling::plain(&zero), &mut work)?;
+    report.times.delaunay = t.elapsed().as_secs_f64();
 
     let t = Instant::now();
     let horo = horocycle::horocyclic_distances(&input, pole, &mut work)?;
-    times.horocycles = t.elapsed().as_secs_f64();
+    report.flips_horocycles = horo.flips;
+    report.horocycle_m = horo.m;
+    report.times.horocycles = t.elapsed().as_secs_f64();
 
     let t = Instant::now();
-    let sol = solver::solve(&input, pole, &horo.d, &opts.solver)?;
-    times.solve = t.elapsed().as_secs_f64();
+    let solved = solver::solve(&input, pole, &horo.d, &opts.solver, &mut report.iteration_log);
+    report.times.solve = t.elapsed().as_secs_f64();
+    let sol = solved?;
+    report.iterations = sol.iterations;
+    report.factorizations = sol.factorizations;
+    report.symbolic_analyses = sol.symbolic_analyses;
+    report.flips_solve = sol.flips;
 
     let t = Instant::now();
     let u: Vec<f64> = sol.s.iter().zip(&horo.d).map(|(s, d)| s - d).collect();
     let sc = Scaling { u: &u, pole, t: sol.t };
     let lay = layout::layout_disk(&sol.tri, &sc)?;
     let points = layout::project(&lay.z, pole);
-    times.layout = t.elapsed().as_secs_f64();
+    report.layout_residual = lay.residual;
+    report.times.layout = t.elapsed().as_secs_f64();
 
     let t = Instant::now();
     let ver = verify::verify(&sol.tri, &sc, &sol.eval.angle, &sol.eval.sums, &lay.z, &points, &opts.verify)?;
-    times.verify = t.elapsed().as_secs_f64();
+    report.boundary_vertices = ver.boundary_vertices;
+    report.verification = ver;
+    report.times.verify = t.elapsed().as_secs_f64();
 
     let t = Instant::now();
     let (angle_distortion, log_area_ratio, inverted_faces) = face_metrics(mesh, &points);
-    times.metrics = t.elapsed().as_secs_f64();
-    times.total = t0.elapsed().as_secs_f64();
+    report.angle_distortion = angle_distortion;
+    report.log_area_ratio = log_area_ratio;
+    report.inverted_faces = inverted_faces;
+    report.times.metrics = t.elapsed().as_secs_f64();
+    report.times.total = t0.elapsed().as_secs_f64();
 
     let he = &sol.tri.he;
     let hull_faces: Vec<[u32; 3]> = (0..he.n_faces()).map(|f| [he.tail[3 * f], he.tail[3 * f + 1], he.tail[3 * f + 2]]).collect();
-    let report = MapReport {
-        vertices: mesh.n_vertices(),
-        faces: mesh.n_faces(),
-        pole,
-        pole_rule,
-        iterations: sol.iterations,
-        factorizations: sol.factorizations,
-        symbolic_analyses: sol.symbolic_analyses,
-        flips_delaunay,
-        flips_horocycles: horo.flips,
-        flips_solve: sol.flips,
-        horocycle_m: horo.m,
-        times,
-        boundary_vertices: ver.boundary_vertices,
-        layout_residual: lay.residual,
-        verification: ver,
-        angle_distortion,
-        log_area_ratio,
-        inverted_faces,
-        iteration_log: sol.log,
-    };
-    Ok(SphereMap {
-        points,
-        pole,
-        hull_faces,
-        report,
-    })
+    Ok((points, pole, hull_faces))
 }
 
 /// Per input face: quasi-conformal ratio and log area ratio (percentiles),

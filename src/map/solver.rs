@@ -115,8 +115,6 @@ pub struct Solution {
     pub factorizations: usize,
     /// Symbolic analyses.
     pub symbolic_analyses: usize,
-    /// The iteration log.
-    pub log: Vec<IterationRecord>,
 }
 
 /// Scaled state: `u_i = s_i - d_i`.
@@ -167,17 +165,25 @@ fn evaluate_at(
 }
 
 /// Solve the bounds-constrained problem from the start in `opts`.
-pub fn solve(input: &Intrinsic, pole: u32, d: &[f64], opts: &SolverOptions) -> Result<Solution> {
+/// The iteration log is appended to `log` whether or not the solve succeeds.
+pub fn solve(input: &Intrinsic, pole: u32, d: &[f64], opts: &SolverOptions, log: &mut Vec<IterationRecord>) -> Result<Solution> {
     let n = input.he.n_vertices();
     let s0 = match opts.start {
         Start::InputMetric => d.to_vec(),
         Start::Bounds => vec![0.0; n],
     };
-    solve_from(input, pole, d, s0, opts)
+    solve_from(input, pole, d, s0, opts, log)
 }
 
-/// Solve from a given start `s0` (clamped to `s >= 0`).
-pub fn solve_from(input: &Intrinsic, pole: u32, d: &[f64], s0: Vec<f64>, opts: &SolverOptions) -> Result<Solution> {
+/// Solve from a given start `s0` (clamped to `s >= 0`), appending to `log`.
+pub fn solve_from(
+    input: &Intrinsic,
+    pole: u32,
+    d: &[f64],
+    s0: Vec<f64>,
+    opts: &SolverOptions,
+    log: &mut Vec<IterationRecord>,
+) -> Result<Solution> {
     let n = input.he.n_vertices();
     let mut theta = vec![2.0 * PI; n];
     theta[pole as usize] = 0.0;
@@ -193,7 +199,6 @@ pub fn solve_from(input: &Intrinsic, pole: u32, d: &[f64], s0: Vec<f64>, opts: &
     let mut fvar = vec![FIXED; n];
     let mut entries = Vec::new();
     let mut spd = SparseSpd::default();
-    let mut log = Vec::new();
     let mut flips = 0u64;
     let mut iterations = 0usize;
     let mut dir = vec![0.0; n];
@@ -351,6 +356,5 @@ pub fn solve_from(input: &Intrinsic, pole: u32, d: &[f64], s0: Vec<f64>, opts: &
         flips,
         factorizations: spd.n_numeric,
         symbolic_analyses: spd.n_symbolic,
-        log,
     })
 }

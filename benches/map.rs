@@ -1,0 +1,123 @@
+//! Benchmark of the spherical conformal mapper on folded synthetic surfaces
+//! of about 10k, 40k and 160k vertices (icospheres of levels 5, 6, 7 with
+//! radial folds; a stand-in until the synthetic cortex generator is used).
+//!
+//! Run: `cargo bench --bench map [-- 10k 40k 160k]`. Prints, per size, the
+//! wall time of each phase, Newton iterations, flips, factorisations and the
+//! peak resident memory of the process so far (VmHWM from
+//! /proc/self/status; sizes run in increasing order, so each figure is the
+//! peak up to and including that size). With `HOROSPHERE_BENCH_JSON=path`
+//! the figures are also written as JSON.
+
+use horosphere::map::{map_to_sphere, MapOptions};
+use horosphere::mesh::shapes::icosphere;
+use horosphere::mesh::TriMesh;
+use std::f64::consts::PI;
+use std::time::Instant;
+
+/// Icosphere of `level` with radial folds: a sum of 12 plane waves of
+/// random directions and frequencies 4-12 (deterministic seed), amplitude
+/// `amp`, then an anisotropic stretch 1 : 1.2 : 0.9.
+fn folded_sphere(level: u32, amp: f64, seed: u64) -> TriMesh {
+    let mut m = icosphere(level, 1.0);
+    let mut x = seed;
+    let mut rnd = || {
+        x ^= x << 13;
+        x ^= x >> 7;
+        x ^= x << 17;
+        (x >> 11) as f64 / (1u64 << 53) as f64
+    };
+    let mut waves = Vec::new();
+    for _ in 0..12 {
+        let mut d = [rnd() - 0.5, rnd() - 0.5, rnd() - 0.5];
+        let n = (d[0] * d[0] + d[1] * d[1] + d[2] * d[2]).sqrt();
+        d = [d[0] / n, d[1] / n, d[2] / n];
+        waves.push((d, 4.0 + 8.0 * rnd(), 2.0 * PI * rnd()));
+    }
+    for p in &mut m.positions {
+        let mut r = 1.0;
+        for (d, k, ph) in &waves {
+            r += amp / 4.0 * (k * (p[0] * d[0] + p[1] * d[1] + p[2] * d[2]) + ph).sin();
+        }
+        *p = [p[0] * r, p[1] * r * 1.2, p[2] * r * 0.9];
+    }
+    m
+}
+
+fn peak_rss_mb() -> f64 {
+    std::fs::read_to_string("/proc/self/status")
+        .ok()
+        .and_then(|s| {
+            s.lines()
+                .find(|l| l.starts_with("VmHWM:"))
+                .and_then(|l| l.split_whitespace().nth(1).and_then(|v| v.parse::<f64>().ok()))
+        })
+        .map(|kb| kb / 1024.0)
+        .unwrap_or(f64::NAN)
+}
+
+fn main() {
+    let args: Vec<String> = std::env::args().skip(1).filter(|a| !a.starts_with("--")).collect();
+    let sizes: Vec<(&str, u32)> = [("10k", 5u32), ("40k", 6), ("160k", 7)]
+        .into_iter()
+        .filter(|(name, _)| args.is_empty() || args.iter().any(|a| a == name))
+        .collect();
+    let mut results = Vec::new();
+    for (name, level) in sizes {
+        let mesh = folded_sphere(level, 0.25, 7);
+        let t = Instant::now();
+        let out = match map_to_sphere(&mesh, &MapOptions::default()) {
+            Ok(out) => out,
+            Err(e) => {
+                eprintln!("{name}: mapping failed: {e}");
+                std::process::exit(1);
+            }
+        };
+        let wall = t.elapsed().as_secs_f64();
+        let r = &out.report;
+        let tm = &r.times;
+        println!(
+            "map {name:>5} ({} vertices): wall {wall:.2} s [checks {:.2}, delaunay {:.2}, distances {:.2}, solve {:.2}, layout {:.2}, verify {:.2}, metrics {:.2}], iterations {}, factorisations {} (symbolic {}), flips {}/{}/{}, boundary {}, peak RSS {:.0} MB",
+            r.vertices,
+            tm.checks,
+            tm.delaunay,
+            tm.horocycles,
+            tm.solve,
+            tm.layout,
+            tm.verify,
+            tm.metrics,
+            r.iterations,
+            r.factorizations,
+            r.symbolic_analyses,
+            r.flips_delaunay,
+            r.flips_horocycles,
+            r.flips_solve,
+            r.boundary_vertices,
+            peak_rss_mb()
+        );
+        println!(
+            "      angle sum error {:.1e}, boundary excess {:.2e}, cross-ratio error {:.1e}, inverted input faces {}, angle distortion p50/p95 {:.3}/{:.3}",
+            r.verification.max_interior_angle_error,
+            r.verification.max_boundary_angle_excess,
+            r.verification.max_cross_ratio_error,
+            r.inverted_faces,
+            r.angle_distortion.p50,
+            r.angle_distortion.p95
+        );
+        results.push(serde_json::json!({
+            "size": name,
+            "vertices": r.vertices,
+            "wall_s": wall,
+            "times": tm,
+            "iterations": r.iterations,
+            "factorizations": r.factorizations,
+            "peak_rss_mb": peak_rss_mb(),
+        }));
+    }
+    if let Ok(path) = std::env::var("HOROSPHERE_BENCH_JSON") {
+        let text = serde_json::to_string_pretty(&results).unwrap_or_default();
+        if let Err(e) = std::fs::write(&path, text) {
+            eprintln!("cannot write {path}: {e}");
+        }
+    }
+}
