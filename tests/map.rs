@@ -342,6 +342,21 @@ fn run(mesh: &TriMesh) -> SphereMap {
     }
 }
 
+/// Both paths (fast with its certificate, and the full method) must
+/// converge to the tolerances and agree.
+fn run_both(mesh: &TriMesh) -> SphereMap {
+    let fast = run(mesh);
+    let opts = MapOptions {
+        fast_path: false,
+        ..MapOptions::default()
+    };
+    let full = map_to_sphere(mesh, &opts).unwrap_or_else(|e| panic!("full method failed: {e}"));
+    common_checks(&full);
+    let worst = fast.points.iter().zip(&full.points).map(|(p, q)| norm(sub(*p, *q))).fold(0.0, f64::max);
+    assert!(worst < 1e-8, "fast and full paths differ by {worst}");
+    fast
+}
+
 // ---------------------------------------------------------------- inscribed
 
 #[test]
@@ -387,14 +402,40 @@ fn both_starting_points_reach_the_same_polyhedron() {
         *p = [p[0] * s, p[1] * s, p[2] * s];
     }
     let mesh = TriMesh::new(bumpy, m.faces.clone()).unwrap();
-    let a = run(&mesh);
-    let mut opts = MapOptions::default();
+    let a = map_to_sphere(&mesh, &MapOptions { fast_path: false, ..MapOptions::default() }).unwrap();
+    common_checks(&a);
+    let mut opts = MapOptions {
+        fast_path: false,
+        ..MapOptions::default()
+    };
     opts.solver.start = horosphere::map::solver::Start::Bounds;
     let b = map_to_sphere(&mesh, &opts).unwrap();
     common_checks(&b);
     let worst = a.points.iter().zip(&b.points).map(|(p, q)| norm(sub(*p, *q))).fold(0.0, f64::max);
     assert!(worst < 1e-9, "{worst}");
     assert!(b.report.iterations >= a.report.iterations);
+}
+
+#[test]
+fn fast_path_agrees_with_the_full_method() {
+    // uniformization.md section 10: the guessed boundary is accepted only
+    // after verification; the full method (distances, bounds) must give the
+    // same points, since the answer is unique up to Moebius and both use the
+    // same normalisation.
+    for (k, mesh) in [folded_sphere(3, 0.2, 11), jittered_inscribed(3, 0.1, 6)].iter().enumerate() {
+        let fast = run(mesh);
+        assert_eq!(fast.report.path, "fast", "case {k}: {:?}", fast.report.fast_path_rejected);
+        let opts = MapOptions {
+            fast_path: false,
+            ..MapOptions::default()
+        };
+        let full = map_to_sphere(mesh, &opts).unwrap();
+        common_checks(&full);
+        assert_eq!(full.report.path, "full");
+        assert!(full.report.flips_horocycles > 0);
+        let worst = fast.points.iter().zip(&full.points).map(|(p, q)| norm(sub(*p, *q))).fold(0.0, f64::max);
+        assert!(worst < 1e-9, "case {k}: {worst}");
+    }
 }
 
 #[test]
@@ -619,7 +660,7 @@ fn robust_noisy_bumpy_sphere_with_slivers_and_needles() {
             m.positions[a] = [pb[0] + 1e-3 * (pa[0] - pb[0]), pb[1] + 1e-3 * (pa[1] - pb[1]), pb[2] + 1e-3 * (pa[2] - pb[2])];
         }
     }
-    let r = run(&m);
+    let r = run_both(&m);
     assert!(r.report.flips_delaunay > 0);
 }
 
@@ -636,7 +677,7 @@ fn robust_edge_length_ratio_1000() {
     let lens: Vec<f64> = mesh.faces.iter().flat_map(|t| (0..3).map(move |k| (t[k], t[(k + 1) % 3]))).map(|(a, b)| norm(sub(moved[a as usize], moved[b as usize]))).collect();
     let ratio = lens.iter().cloned().fold(0.0, f64::max) / lens.iter().cloned().fold(f64::INFINITY, f64::min);
     assert!(ratio > 1000.0, "ratio {ratio}");
-    let r = run(&mesh);
+    let r = run_both(&mesh);
     let (fit, _) = moebius_fit_residual(&r.points, &moved);
     assert!(fit < 1e-8, "{fit}");
     // Also with bumps (no longer inscribed): converges.
@@ -645,7 +686,7 @@ fn robust_edge_length_ratio_1000() {
         let s = 1.0 + 0.05 * rng.f();
         [p[0] * s, p[1] * s, p[2] * s]
     }).collect();
-    run(&TriMesh::new(bumpy, base.faces.clone()).unwrap());
+    run_both(&TriMesh::new(bumpy, base.faces.clone()).unwrap());
 }
 
 #[test]
@@ -654,7 +695,7 @@ fn robust_ellipsoid_10_to_1() {
     for p in &mut m.positions {
         p[2] *= 10.0;
     }
-    run(&m);
+    run_both(&m);
 }
 
 #[test]
@@ -685,7 +726,7 @@ fn robust_strongly_non_delaunay_triangulation() {
     assert!(flips > 1000);
     let faces: Vec<[u32; 3]> = (0..he.n_faces()).map(|f| [he.tail[3 * f], he.tail[3 * f + 1], he.tail[3 * f + 2]]).collect();
     let mesh = TriMesh::new(m.positions.clone(), faces).unwrap();
-    let r = run(&mesh);
+    let r = run_both(&mesh);
     assert!(r.report.flips_delaunay > 500, "{}", r.report.flips_delaunay);
 }
 
@@ -693,9 +734,10 @@ fn robust_strongly_non_delaunay_triangulation() {
 fn robust_folded_surfaces_and_every_pole_rule() {
     for (level, amp, seed) in [(3u32, 0.15, 1u64), (4, 0.2, 2), (4, 0.3, 3)] {
         let m = folded_sphere(level, amp, seed);
-        let r = run(&m);
+        let r = run_both(&m);
         eprintln!(
-            "folded level {level} amp {amp}: {} iterations, boundary {}, inverted {}, angle distortion p50 {:.3}",
+            "folded level {level} amp {amp}: {} path, {} iterations, boundary {}, inverted {}, angle distortion p50 {:.3}",
+            r.report.path,
             r.report.iterations, r.report.boundary_vertices, r.report.inverted_faces, r.report.angle_distortion.p50
         );
     }

@@ -74,6 +74,8 @@ pub struct MapOptions {
     pub solver: SolverOptions,
     /// Verification tolerances.
     pub verify: VerifyTolerances,
+    /// Try the fast path first (see the module documentation).
+    pub fast_path: bool,
 }
 
 impl Default for MapOptions {
@@ -82,6 +84,7 @@ impl Default for MapOptions {
             pole: PoleChoice::Auto,
             solver: SolverOptions::default(),
             verify: VerifyTolerances::default(),
+            fast_path: true,
         }
     }
 }
@@ -91,6 +94,8 @@ impl Default for MapOptions {
 pub struct PhaseTimes {
     pub checks: f64,
     pub delaunay: f64,
+    /// The fast path in all (solve, layout, verify), when tried.
+    pub fast_path: f64,
     pub horocycles: f64,
     pub solve: f64,
     pub layout: f64,
@@ -136,6 +141,11 @@ impl Percentiles {
 pub struct MapReport {
     /// `"ok"` or `"failed"`.
     pub status: String,
+    /// `"fast"` (guessed boundary, verified) or `"full"` (distances and
+    /// bounds-constrained minimisation).
+    pub path: String,
+    /// Why the fast path was not taken, if it was tried.
+    pub fast_path_rejected: Option<String>,
     /// The error of a failed mapping.
     pub error: Option<String>,
     pub vertices: usize,
@@ -317,6 +327,59 @@ pub fn map_to_sphere_diagnosed(mesh: &TriMesh, opts: &MapOptions) -> std::result
 }
 
 type Mapped = (Vec<[f64; 3]>, u32, Vec<[u32; 3]>);
+type Solved = (solver::Solution, layout::Layout, Vec<[f64; 3]>, Verification);
+
+fn lay_out(sol: &solver::Solution, d: &[f64], pole: u32) -> Result<(layout::Layout, Vec<[f64; 3]>)> {
+    let u: Vec<f64> = sol.s.iter().zip(d).map(|(s, d)| s - d).collect();
+    let sc = Scaling { u: &u, pole, t: sol.t };
+    let lay = layout::layout_disk(&sol.tri, &sc)?;
+    let points = layout::project(&lay.z, pole);
+    Ok((lay, points))
+}
+
+fn verify_solution(
+    sol: &solver::Solution,
+    d: &[f64],
+    pole: u32,
+    lay: &layout::Layout,
+    points: &[[f64; 3]],
+    opts: &MapOptions,
+) -> Result<Verification> {
+    let u: Vec<f64> = sol.s.iter().zip(d).map(|(s, d)| s - d).collect();
+    let sc = Scaling { u: &u, pole, t: sol.t };
+    verify::verify(&sol.tri, &sc, &sol.eval.angle, &sol.eval.sums, &lay.z, points, &opts.verify)
+}
+
+/// The fast path with a certificate: guess that the disk boundary is the
+/// pole's neighbours in the input's Delaunay triangulation, hold them on the
+/// horocycle through their edges to the pole (`u_i = -lam_pi`), flatten the
+/// rest, lay out and verify. The convex inscribed realisation is unique up
+/// to Moebius (Springborn 2020), so a result that passes [`verify`] is the
+/// answer; otherwise the caller falls back to the full method.
+fn fast_path(input: &Intrinsic, pole: u32, opts: &MapOptions, log: &mut Vec<IterationRecord>) -> Result<Solved> {
+    let n = input.he.n_vertices();
+    let mut fixed = vec![false; n];
+    let mut d = vec![0.0; n];
+    let mut dmin = vec![f64::INFINITY; n];
+    for h in input.he.outgoing(pole) {
+        let i = input.he.head(h) as usize;
+        if i as u32 != pole {
+            fixed[i] = true;
+            dmin[i] = dmin[i].min(input.lam[input.he.edge[h as usize] as usize]);
+        }
+    }
+    for v in 0..n {
+        if fixed[v] {
+            d[v] = dmin[v];
+        }
+    }
+    let sol = solver::solve_fixed_boundary(input, pole, &d, &fixed, &opts.solver, log)?;
+    // KKT of the guess: the held vertices must want to stay on their bounds
+    // (disk angle below pi), checked by the verification's boundary test.
+    let (lay, points) = lay_out(&sol, &d, pole)?;
+    let ver = verify_solution(&sol, &d, pole, &lay, &points, opts)?;
+    Ok((sol, lay, points, ver))
+}
 
 fn run(mesh: &TriMesh, opts: &MapOptions, report: &mut MapReport) -> Result<Mapped> {
     let t0 = Instant::now();
@@ -332,34 +395,50 @@ fn run(mesh: &TriMesh, opts: &MapOptions, report: &mut MapReport) -> Result<Mapp
     report.flips_delaunay = input.flip_to_delaunay(&Scaling::plain(&zero), &mut work)?;
     report.times.delaunay = t.elapsed().as_secs_f64();
 
-    let t = Instant::now();
-    let horo = horocycle::horocyclic_distances(&input, pole, &mut work)?;
-    report.flips_horocycles = horo.flips;
-    report.horocycle_m = horo.m;
-    report.times.horocycles = t.elapsed().as_secs_f64();
+    let mut fast = None;
+    if opts.fast_path {
+        let t = Instant::now();
+        let mut log = Vec::new();
+        match fast_path(&input, pole, opts, &mut log) {
+            Ok(done) => fast = Some((done, log)),
+            Err(e) => report.fast_path_rejected = Some(e.to_string()),
+        }
+        report.times.fast_path = t.elapsed().as_secs_f64();
+    }
+    let (sol, lay, points, ver) = match fast {
+        Some(((sol, lay, points, ver), log)) => {
+            report.path = "fast".into();
+            report.iteration_log = log;
+            (sol, lay, points, ver)
+        }
+        None => {
+            report.path = "full".into();
+            let t = Instant::now();
+            let horo = horocycle::horocyclic_distances(&input, pole, &mut work)?;
+            report.flips_horocycles = horo.flips;
+            report.horocycle_m = horo.m;
+            report.times.horocycles = t.elapsed().as_secs_f64();
 
-    let t = Instant::now();
-    let solved = solver::solve(&input, pole, &horo.d, &opts.solver, &mut report.iteration_log);
-    report.times.solve = t.elapsed().as_secs_f64();
-    let sol = solved?;
+            let t = Instant::now();
+            let solved = solver::solve(&input, pole, &horo.d, &opts.solver, &mut report.iteration_log);
+            report.times.solve = t.elapsed().as_secs_f64();
+            let sol = solved?;
+            let t = Instant::now();
+            let (lay, points) = lay_out(&sol, &horo.d, pole)?;
+            report.times.layout = t.elapsed().as_secs_f64();
+            let t = Instant::now();
+            let ver = verify_solution(&sol, &horo.d, pole, &lay, &points, opts)?;
+            report.times.verify = t.elapsed().as_secs_f64();
+            (sol, lay, points, ver)
+        }
+    };
     report.iterations = sol.iterations;
     report.factorizations = sol.factorizations;
     report.symbolic_analyses = sol.symbolic_analyses;
     report.flips_solve = sol.flips;
-
-    let t = Instant::now();
-    let u: Vec<f64> = sol.s.iter().zip(&horo.d).map(|(s, d)| s - d).collect();
-    let sc = Scaling { u: &u, pole, t: sol.t };
-    let lay = layout::layout_disk(&sol.tri, &sc)?;
-    let points = layout::project(&lay.z, pole);
     report.layout_residual = lay.residual;
-    report.times.layout = t.elapsed().as_secs_f64();
-
-    let t = Instant::now();
-    let ver = verify::verify(&sol.tri, &sc, &sol.eval.angle, &sol.eval.sums, &lay.z, &points, &opts.verify)?;
     report.boundary_vertices = ver.boundary_vertices;
     report.verification = ver;
-    report.times.verify = t.elapsed().as_secs_f64();
 
     let t = Instant::now();
     let (angle_distortion, log_area_ratio, inverted_faces) = face_metrics(mesh, &points);

@@ -184,10 +184,44 @@ pub fn solve_from(
     opts: &SolverOptions,
     log: &mut Vec<IterationRecord>,
 ) -> Result<Solution> {
+    solve_general(input, pole, d, s0, None, opts, log)
+}
+
+/// The fast path's problem: the vertices with `fixed[v]` are held on their
+/// bounds (`s = 0`), all others are free and unbounded (their `d` is
+/// ignored; pass 0): an ordinary flattening of a disk with fixed boundary
+/// log factors. Its result is an answer only if it passes the verification
+/// (see [`super::map_to_sphere`]).
+pub fn solve_fixed_boundary(
+    input: &Intrinsic,
+    pole: u32,
+    d: &[f64],
+    fixed: &[bool],
+    opts: &SolverOptions,
+    log: &mut Vec<IterationRecord>,
+) -> Result<Solution> {
+    let s0: Vec<f64> = (0..d.len()).map(|v| if fixed[v] { 0.0 } else { d[v] }).collect();
+    solve_general(input, pole, d, s0, Some(fixed), opts, log)
+}
+
+fn solve_general(
+    input: &Intrinsic,
+    pole: u32,
+    d: &[f64],
+    s0: Vec<f64>,
+    fixed: Option<&[bool]>,
+    opts: &SolverOptions,
+    log: &mut Vec<IterationRecord>,
+) -> Result<Solution> {
     let n = input.he.n_vertices();
+    if fixed.is_some_and(|f| f.len() != n) {
+        return Err(Error::Invalid("fixed-boundary mask of the wrong length".into()));
+    }
+    let is_fixed = |v: usize| fixed.is_some_and(|f| f[v]);
+    let bounded = fixed.is_none();
     let mut theta = vec![2.0 * PI; n];
     theta[pole as usize] = 0.0;
-    let mut s: Vec<f64> = s0.iter().map(|x| x.max(0.0)).collect();
+    let mut s: Vec<f64> = s0.iter().map(|x| if bounded { x.max(0.0) } else { *x }).collect();
     s[pole as usize] = 0.0;
     let var: Vec<u32> = (0..n as u32).map(|v| if v == pole { FIXED } else { v }).collect();
     let mut tri = input.clone();
@@ -204,10 +238,11 @@ pub fn solve_from(
     let mut dir = vec![0.0; n];
     let mut s_trial = vec![0.0; n];
     let mut rhs = Vec::new();
+    let snap = if bounded { opts.snap } else { -1.0 };
     let mut t = opts.t_stages.first().copied().unwrap_or(80.0);
     for &t_stage in &opts.t_stages {
         t = t_stage;
-        flips += evaluate_at(&mut tri, &s, d, pole, t, opts.snap, &mut u, &theta, &mut work, &mut ev)?;
+        flips += evaluate_at(&mut tri, &s, d, pole, t, snap, &mut u, &theta, &mut work, &mut ev)?;
         let mut converged = false;
         for iter in 0..opts.max_iter_per_stage {
             gradient(&theta, &ev.sums, &var, &mut g);
@@ -215,7 +250,13 @@ pub fn solve_from(
             let mut pg_max: f64 = 0.0;
             for v in 0..n {
                 if v as u32 != pole {
-                    let pg = s[v] - (s[v] - g[v]).max(0.0);
+                    let pg = if is_fixed(v) {
+                        0.0
+                    } else if bounded {
+                        s[v] - (s[v] - g[v]).max(0.0)
+                    } else {
+                        g[v]
+                    };
                     pg_max = pg_max.max(pg.abs());
                 }
             }
@@ -246,7 +287,7 @@ pub fn solve_from(
             for v in 0..n {
                 if v as u32 == pole {
                     fvar[v] = FIXED;
-                } else if s[v] <= eps && g[v] > 0.0 {
+                } else if is_fixed(v) || (bounded && s[v] <= eps && g[v] > 0.0) {
                     fvar[v] = FIXED;
                     n_active += 1;
                 } else {
@@ -301,9 +342,15 @@ pub fn solve_from(
             let mut ls_flips = 0;
             for _ in 0..60 {
                 for v in 0..n {
-                    s_trial[v] = if v as u32 == pole { 0.0 } else { (s[v] + alpha * dir[v]).max(0.0) };
+                    s_trial[v] = if v as u32 == pole || is_fixed(v) {
+                        s[v]
+                    } else if bounded {
+                        (s[v] + alpha * dir[v]).max(0.0)
+                    } else {
+                        s[v] + alpha * dir[v]
+                    };
                 }
-                ls_flips += evaluate_at(&mut tri, &s_trial, d, pole, t, opts.snap, &mut u, &theta, &mut work, &mut ev_trial)?;
+                ls_flips += evaluate_at(&mut tri, &s_trial, d, pole, t, snap, &mut u, &theta, &mut work, &mut ev_trial)?;
                 let decrease: f64 = (0..n).map(|v| g[v] * (s_trial[v] - s[v])).sum();
                 if ev_trial.energy.is_finite() && ev_trial.energy <= e0 + 1e-4 * decrease + roundoff {
                     accepted = true;
