@@ -6,6 +6,9 @@
 use clap::{Parser, Subcommand};
 use std::process::ExitCode;
 
+mod convert;
+mod inspect;
+
 /// Cortical surfaces of a cohort to one common sphere. Research use only:
 /// not a medical device; results need review by a trained analyst.
 #[derive(Parser, Debug)]
@@ -17,12 +20,19 @@ pub struct Cli {
 
 #[derive(Subcommand, Debug)]
 enum Command {
+    /// Report the topology and geometry of a surface mesh and whether it is ready to map.
+    Inspect(inspect::InspectArgs),
+    /// Re-encode a GIFTI file (encoding, byte order), keeping all its content.
+    Convert(convert::ConvertArgs),
 }
 
 /// Run the command line and return the exit status.
 pub fn main() -> ExitCode {
     let cli = Cli::parse();
-    let result: horosphere::Result<ExitCode> = match cli.command {};
+    let result: horosphere::Result<ExitCode> = match &cli.command {
+        Command::Inspect(args) => inspect::run(args),
+        Command::Convert(args) => convert::run(args),
+    };
     match result {
         Ok(code) => code,
         Err(e) => {
