@@ -837,3 +837,80 @@ fn a_failed_solve_keeps_its_iteration_log() {
         }
     }
 }
+
+// ---------------------------------------------------------------- command line
+
+fn temp_dir(tag: &str) -> std::path::PathBuf {
+    let d = std::env::temp_dir().join(format!("horosphere-map-{tag}-{}", std::process::id()));
+    std::fs::create_dir_all(&d).unwrap();
+    d
+}
+
+fn horosphere(args: &[&std::ffi::OsStr]) -> std::process::Output {
+    std::process::Command::new(env!("CARGO_BIN_EXE_horosphere")).args(args).output().unwrap()
+}
+
+#[test]
+fn command_line_maps_and_reports() {
+    let dir = temp_dir("cli");
+    let surf = dir.join("sub-ana_hemi-L_white.surf.gii");
+    let m = folded_sphere(3, 0.2, 2);
+    horosphere::io::write_mesh(&surf, &m).unwrap();
+    let sphere = dir.join("sphere.surf.gii");
+    let hull = dir.join("hull.ply");
+    let report = dir.join("map.json");
+    let out = horosphere(&[
+        "map".as_ref(),
+        surf.as_os_str(),
+        "-o".as_ref(),
+        sphere.as_os_str(),
+        "--pole".as_ref(),
+        "12".as_ref(),
+        "--radius".as_ref(),
+        "50".as_ref(),
+        "--report".as_ref(),
+        report.as_os_str(),
+        "--hull-out".as_ref(),
+        hull.as_os_str(),
+    ]);
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    let s = horosphere::io::read_mesh(&sphere).unwrap();
+    assert_eq!(s.faces, m.faces);
+    assert_eq!(s.n_vertices(), m.n_vertices());
+    for p in &s.positions {
+        // GIFTI stores float32: radius 50 to float precision.
+        assert!((norm(*p) - 50.0).abs() < 1e-4);
+    }
+    assert!((norm(sub(s.positions[12], [0.0, 0.0, 50.0]))) < 1e-4);
+    let h = horosphere::io::read_mesh(&hull).unwrap();
+    assert_eq!(h.n_vertices(), m.n_vertices());
+    assert_eq!(h.n_faces(), m.n_faces());
+    let rep: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&report).unwrap()).unwrap();
+    assert_eq!(rep["status"], "ok");
+    assert_eq!(rep["pole"], 12);
+    assert!(rep["verification"]["max_interior_angle_error"].as_f64().unwrap() < 1e-9);
+    assert!(rep["iteration_log"].as_array().unwrap().len() >= 2);
+    assert_eq!(rep["inverted_faces"], 0);
+}
+
+#[test]
+fn command_line_refuses_bad_input_and_writes_nothing() {
+    let dir = temp_dir("bad");
+    let surf = dir.join("open.obj");
+    let mut m = icosphere(2, 1.0);
+    m.faces.pop();
+    horosphere::io::write_mesh(&surf, &m).unwrap();
+    let sphere = dir.join("sphere.surf.gii");
+    let out = horosphere(&["map".as_ref(), surf.as_os_str(), "-o".as_ref(), sphere.as_os_str()]);
+    assert_eq!(out.status.code(), Some(1));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(err.contains("open.obj") && err.contains("not closed") && err.contains("horosphere repair"), "{err}");
+    assert!(!sphere.exists());
+    // A bad --pole value.
+    let ok = dir.join("ok.obj");
+    horosphere::io::write_mesh(&ok, &icosphere(1, 1.0)).unwrap();
+    let out = horosphere(&["map".as_ref(), ok.as_os_str(), "-o".as_ref(), sphere.as_os_str(), "--pole".as_ref(), "north".as_ref()]);
+    assert_eq!(out.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("--pole north"));
+    assert!(!sphere.exists());
+}

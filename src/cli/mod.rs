@@ -8,6 +8,7 @@ use std::process::ExitCode;
 
 mod convert;
 mod inspect;
+mod map;
 
 /// Cortical surfaces of a cohort to one common sphere. Research use only:
 /// not a medical device; results need review by a trained analyst.
@@ -24,6 +25,8 @@ enum Command {
     Inspect(inspect::InspectArgs),
     /// Re-encode a GIFTI file (encoding, byte order), keeping all its content.
     Convert(convert::ConvertArgs),
+    /// Map a closed genus-0 surface to the sphere by exact discrete conformal uniformization.
+    Map(map::MapArgs),
 }
 
 /// Run the command line and return the exit status.
@@ -32,6 +35,7 @@ pub fn main() -> ExitCode {
     let result: horosphere::Result<ExitCode> = match &cli.command {
         Command::Inspect(args) => inspect::run(args),
         Command::Convert(args) => convert::run(args),
+        Command::Map(args) => map::run(args),
     };
     match result {
         Ok(code) => code,

@@ -26,6 +26,16 @@
 //! Newton methods for optimization problems with simple constraints", SIAM
 //! J. Control Optim. 20(2) (1982).
 //!
+//! Two paths. The *fast path* (uniformization.md section 10) guesses that
+//! the disk boundary is the pole's neighbourhood in the input's intrinsic
+//! Delaunay triangulation, holds those vertices on the horocycle through
+//! their edges to the pole and flattens the rest; the result is kept only if
+//! it passes every check of [`verify`] (the convex inscribed realisation is
+//! unique up to Moebius, so a verified result is the answer). Otherwise the
+//! *full method* runs: horocyclic distances ([`horocycle`]) and the
+//! bounds-constrained projected Newton method ([`solver`]). The report says
+//! which path gave the result.
+//!
 //! Pole rule of [`PoleChoice::Auto`] (documented, deterministic): among the
 //! candidate vertices (all, or those given with [`PoleChoice::Among`], e.g.
 //! vertices added by repair), take those whose degree is closest to the

@@ -371,14 +371,6 @@ fn solve_general(
                 });
             }
             record.step = alpha;
-            if std::env::var("HORO_TRACE").is_ok() {
-                let mut wv = 0; let mut wpg = 0.0f64;
-                for v in 0..n { if v as u32 != pole { let pg = (s[v] - (s[v]-g[v]).max(0.0)).abs(); if pg > wpg { wpg = pg; wv = v; } } }
-                let deg = tri.he.degree(wv as u32);
-                let npole = tri.he.outgoing(wv as u32).filter(|&h| tri.he.head(h) == pole).count();
-                let nloop = tri.he.outgoing(wv as u32).filter(|&h| tri.he.head(h) == wv as u32).count();
-                eprintln!("{record:?} nf={nf} invalid={} worst v={wv} s={:.3e} g={:.3e} d={:.3} deg={deg} pole_edges={npole} loops={nloop} dir={:.3e}", ev_trial.n_invalid, s[wv], g[wv], d[wv], dir[wv]);
-            }
             log.push(record);
             std::mem::swap(&mut s, &mut s_trial);
             std::mem::swap(&mut ev, &mut ev_trial);
