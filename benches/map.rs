@@ -77,12 +77,18 @@ fn main() {
         let r = &out.report;
         let tm = &r.times;
         println!(
-            "map {name:>5} ({} vertices): wall {wall:.2} s [checks {:.2}, delaunay {:.2}, distances {:.2}, solve {:.2}, layout {:.2}, verify {:.2}, metrics {:.2}], iterations {}, factorisations {} (symbolic {}), flips {}/{}/{}, boundary {}, peak RSS {:.0} MB",
+            "map {name:>5} ({} vertices, {} path): wall {wall:.2} s [checks {:.2}, delaunay {:.2}, distances {:.2}, solve {:.2} (evaluate {:.2}, assemble {:.2}, symbolic {:.2}, numeric {:.2}, solve {:.2}), layout {:.2}, verify {:.2}, metrics {:.2}], iterations {}, factorisations {} (symbolic {}), flips {}/{}/{}, boundary {}, peak RSS {:.0} MB",
             r.vertices,
+            r.path,
             tm.checks,
             tm.delaunay,
             tm.horocycles,
             tm.solve,
+            r.solve_profile.evaluate,
+            r.solve_profile.assemble,
+            r.solve_profile.symbolic,
+            r.solve_profile.numeric,
+            r.solve_profile.solve,
             tm.layout,
             tm.verify,
             tm.metrics,
@@ -104,6 +110,14 @@ fn main() {
             r.angle_distortion.p50,
             r.angle_distortion.p95
         );
+        if let Some(why) = &r.fast_path_rejected {
+            println!("      fast path rejected: {why}");
+        }
+        if std::env::var("HOROSPHERE_BENCH_LOG").is_ok() {
+            for it in &r.iteration_log {
+                println!("      T {:>4} iter {:>2}: pg {:.2e}, active {}, step {}, flips {}", it.t, it.iter, it.max_projected_gradient, it.active, it.step, it.flips);
+            }
+        }
         results.push(serde_json::json!({
             "size": name,
             "vertices": r.vertices,

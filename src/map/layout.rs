@@ -24,6 +24,7 @@
 
 use super::intrinsic::{triangle_angles, Intrinsic, Scaling};
 use super::sparse::SparseSpd;
+use faer::c64;
 use crate::error::{Error, Result};
 
 /// The planar layout.
@@ -73,90 +74,71 @@ pub fn layout_disk(tri: &Intrinsic, s: &Scaling) -> Result<Layout> {
             message: format!("vertex {v} lies in no triangle of the disk"),
         });
     }
-    let mut pinned = vec![[0.0f64; 2]; n];
-    pinned[pb as usize] = [1.0, 0.0];
-    // Coefficients per equation.
-    let eq = |f: u32| -> [(u32, [f64; 2]); 3] {
-        let lams = tri.face_lams(f, s);
-        let t = triangle_angles(lams);
-        let (a, b, c) = (he.tail[(3 * f) as usize], he.tail[(3 * f + 1) as usize], he.tail[(3 * f + 2) as usize]);
-        let inv_ab = (-(lams[0] - lref) / 2.0).exp();
-        let inv_ca = (-(lams[2] - lref) / 2.0).exp();
-        let (sn, cs) = t.angle[1].sin_cos();
-        let rot = [cs * inv_ab, sn * inv_ab]; // e^{i alpha_a} / l_ab
-        [
-            (a, [rot[0] - inv_ca, rot[1]]),
-            (b, [-rot[0], -rot[1]]),
-            (c, [inv_ca, 0.0]),
-        ]
-    };
-    let mut entries: Vec<(u32, u32, f64)> = Vec::with_capacity(disk.len() * 36);
-    let mut rhs = vec![0.0; 2 * m as usize];
-    for &f in &disk {
-        let cf = eq(f);
-        for &(vj, cj) in &cf {
+    // Coefficients per equation, complex: sum_j c_j z_j = 0.
+    let coeffs: Vec<[(u32, c64); 3]> = disk
+        .iter()
+        .map(|&f| {
+            let lams = tri.face_lams(f, s);
+            let t = triangle_angles(lams);
+            let (a, b, c) = (he.tail[(3 * f) as usize], he.tail[(3 * f + 1) as usize], he.tail[(3 * f + 2) as usize]);
+            let inv_ab = (-(lams[0] - lref) / 2.0).exp();
+            let inv_ca = (-(lams[2] - lref) / 2.0).exp();
+            let (sn, cs) = t.angle[1].sin_cos();
+            let rot = c64::new(cs * inv_ab, sn * inv_ab); // e^{i alpha_a} / l_ab
+            [(a, rot - c64::new(inv_ca, 0.0)), (b, -rot), (c, c64::new(inv_ca, 0.0))]
+        })
+        .collect();
+    // Hermitian normal equations A^H A z = -A^H A_pinned z_pinned (lower
+    // triangle: row >= column).
+    let mut z: Vec<c64> = vec![c64::new(0.0, 0.0); n];
+    z[pb as usize] = c64::new(1.0, 0.0);
+    let mut entries: Vec<(u32, u32, c64)> = Vec::with_capacity(coeffs.len() * 9);
+    let mut rhs = vec![c64::new(0.0, 0.0); m as usize];
+    for cf in &coeffs {
+        for &(vj, cj) in cf {
             let ij = idx[vj as usize];
             if ij == u32::MAX {
                 continue;
             }
-            for &(vk, ck) in &cf {
-                // B = C_j^T C_k for the real 2x2 blocks [[p, -q], [q, p]].
-                let (pj, qj, pk, qk) = (cj[0], cj[1], ck[0], ck[1]);
-                let b = [[pj * pk + qj * qk, -pj * qk + qj * pk], [-qj * pk + pj * qk, qj * qk + pj * pk]];
+            for &(vk, ck) in cf {
                 let ik = idx[vk as usize];
+                let val = cj.conj() * ck;
                 if ik == u32::MAX {
-                    let z = pinned[vk as usize];
-                    rhs[2 * ij as usize] -= b[0][0] * z[0] + b[0][1] * z[1];
-                    rhs[2 * ij as usize + 1] -= b[1][0] * z[0] + b[1][1] * z[1];
-                    continue;
-                }
-                for (r, row) in b.iter().enumerate() {
-                    for (c, &val) in row.iter().enumerate() {
-                        let gr = 2 * ij + r as u32;
-                        let gc = 2 * ik + c as u32;
-                        if gr >= gc {
-                            entries.push((gr, gc, val));
-                        }
-                    }
+                    rhs[ij as usize] -= val * z[vk as usize];
+                } else if ij >= ik {
+                    entries.push((ij, ik, val));
                 }
             }
         }
     }
-    let mut spd = SparseSpd::default();
+    let mut spd: SparseSpd<c64> = SparseSpd::default();
     if m > 0 {
-        spd.factorize(2 * m as usize, &mut entries)?;
+        spd.factorize(m as usize, &mut entries)?;
         spd.solve(&mut rhs)?;
     }
-    let mut z = pinned;
-    let scatter = |z: &mut Vec<[f64; 2]>, x: &[f64], add: bool| {
+    let scatter = |z: &mut Vec<c64>, x: &[c64], add: bool| {
         for (v, zv) in z.iter_mut().enumerate() {
             let i = idx[v];
             if i != u32::MAX {
-                let (a, b) = (x[2 * i as usize], x[2 * i as usize + 1]);
-                *zv = if add { [zv[0] + a, zv[1] + b] } else { [a, b] };
+                *zv = if add { *zv + x[i as usize] } else { x[i as usize] };
             }
         }
     };
     scatter(&mut z, &rhs, false);
-    // Residual of every equation; `atr` collects A^T r for the refinement.
-    let residuals = |z: &[[f64; 2]], atr: &mut Vec<f64>| -> f64 {
-        atr.iter_mut().for_each(|x| *x = 0.0);
+    // Residual of every equation; `atr` collects A^H r for the refinement.
+    let residuals = |z: &[c64], atr: &mut Vec<c64>| -> f64 {
+        atr.iter_mut().for_each(|x| *x = c64::new(0.0, 0.0));
         let mut worst: f64 = 0.0;
-        for &f in &disk {
-            let cf = eq(f);
-            let mut acc = [0.0, 0.0];
-            for &(v, c) in &cf {
-                let zv = z[v as usize];
-                acc[0] += c[0] * zv[0] - c[1] * zv[1];
-                acc[1] += c[1] * zv[0] + c[0] * zv[1];
+        for cf in &coeffs {
+            let mut acc = c64::new(0.0, 0.0);
+            for &(v, c) in cf {
+                acc += c * z[v as usize];
             }
-            worst = worst.max(acc[0].hypot(acc[1]));
-            // r = -acc; A^T r per unknown: C_j^T r.
-            for &(v, c) in &cf {
+            worst = worst.max(acc.norm());
+            for &(v, c) in cf {
                 let i = idx[v as usize];
                 if i != u32::MAX {
-                    atr[2 * i as usize] -= c[0] * acc[0] + c[1] * acc[1];
-                    atr[2 * i as usize + 1] -= -c[1] * acc[0] + c[0] * acc[1];
+                    atr[i as usize] -= c.conj() * acc;
                 }
             }
         }
@@ -166,7 +148,7 @@ pub fn layout_disk(tri: &Intrinsic, s: &Scaling) -> Result<Layout> {
     // equations): each step removes the error the squared condition number
     // of the normal equations let in (Bjorck, "Numerical methods for least
     // squares problems", SIAM 1996, section 2.5).
-    let mut atr = vec![0.0; 2 * m as usize];
+    let mut atr = vec![c64::new(0.0, 0.0); m as usize];
     let mut residual = residuals(&z, &mut atr);
     for _ in 0..4 {
         if m == 0 {
@@ -175,7 +157,7 @@ pub fn layout_disk(tri: &Intrinsic, s: &Scaling) -> Result<Layout> {
         spd.solve(&mut atr)?;
         let mut trial = z.clone();
         scatter(&mut trial, &atr, true);
-        let mut atr2 = vec![0.0; 2 * m as usize];
+        let mut atr2 = vec![c64::new(0.0, 0.0); m as usize];
         let r2 = residuals(&trial, &mut atr2);
         if !(r2 < residual) {
             break;
@@ -184,6 +166,7 @@ pub fn layout_disk(tri: &Intrinsic, s: &Scaling) -> Result<Layout> {
         residual = r2;
         atr = atr2;
     }
+    let mut z: Vec<[f64; 2]> = z.iter().map(|c| [c.re, c.im]).collect();
     // Normalise: centroid at the origin, unit RMS radius.
     let count = (n - usize::from(pole != u32::MAX)) as f64;
     let mut c = [0.0, 0.0];

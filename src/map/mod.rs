@@ -172,6 +172,8 @@ pub struct MapReport {
     pub flips_delaunay: u64,
     pub flips_horocycles: u64,
     pub flips_solve: u64,
+    /// Where the minimisation's time went.
+    pub solve_profile: solver::SolveProfile,
     /// The distance step's final `M`.
     pub horocycle_m: f64,
     pub times: PhaseTimes,
@@ -366,7 +368,13 @@ fn verify_solution(
 /// rest, lay out and verify. The convex inscribed realisation is unique up
 /// to Moebius (Springborn 2020), so a result that passes [`verify`] is the
 /// answer; otherwise the caller falls back to the full method.
-fn fast_path(input: &Intrinsic, pole: u32, opts: &MapOptions, log: &mut Vec<IterationRecord>) -> Result<Solved> {
+fn fast_path(
+    input: &Intrinsic,
+    pole: u32,
+    opts: &MapOptions,
+    log: &mut Vec<IterationRecord>,
+    times: &mut PhaseTimes,
+) -> Result<Solved> {
     let n = input.he.n_vertices();
     let mut fixed = vec![false; n];
     let mut d = vec![0.0; n];
@@ -383,11 +391,17 @@ fn fast_path(input: &Intrinsic, pole: u32, opts: &MapOptions, log: &mut Vec<Iter
             d[v] = dmin[v];
         }
     }
+    let t = Instant::now();
     let sol = solver::solve_fixed_boundary(input, pole, &d, &fixed, &opts.solver, log)?;
+    times.solve = t.elapsed().as_secs_f64();
     // KKT of the guess: the held vertices must want to stay on their bounds
     // (disk angle below pi), checked by the verification's boundary test.
+    let t = Instant::now();
     let (lay, points) = lay_out(&sol, &d, pole)?;
+    times.layout = t.elapsed().as_secs_f64();
+    let t = Instant::now();
     let ver = verify_solution(&sol, &d, pole, &lay, &points, opts)?;
+    times.verify = t.elapsed().as_secs_f64();
     Ok((sol, lay, points, ver))
 }
 
@@ -409,7 +423,7 @@ fn run(mesh: &TriMesh, opts: &MapOptions, report: &mut MapReport) -> Result<Mapp
     if opts.fast_path {
         let t = Instant::now();
         let mut log = Vec::new();
-        match fast_path(&input, pole, opts, &mut log) {
+        match fast_path(&input, pole, opts, &mut log, &mut report.times) {
             Ok(done) => fast = Some((done, log)),
             Err(e) => report.fast_path_rejected = Some(e.to_string()),
         }
@@ -446,6 +460,7 @@ fn run(mesh: &TriMesh, opts: &MapOptions, report: &mut MapReport) -> Result<Mapp
     report.factorizations = sol.factorizations;
     report.symbolic_analyses = sol.symbolic_analyses;
     report.flips_solve = sol.flips;
+    report.solve_profile = sol.profile.clone();
     report.layout_residual = lay.residual;
     report.boundary_vertices = ver.boundary_vertices;
     report.verification = ver;

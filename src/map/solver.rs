@@ -115,6 +115,23 @@ pub struct Solution {
     pub factorizations: usize,
     /// Symbolic analyses.
     pub symbolic_analyses: usize,
+    /// Where the time went.
+    pub profile: SolveProfile,
+}
+
+/// Seconds per part of the solve.
+#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
+pub struct SolveProfile {
+    /// Flipping to Delaunay, angles and energy (all evaluations).
+    pub evaluate: f64,
+    /// Assembling the Newton matrices.
+    pub assemble: f64,
+    /// Symbolic analyses (ordering).
+    pub symbolic: f64,
+    /// Numeric factorisations.
+    pub numeric: f64,
+    /// Triangular solves.
+    pub solve: f64,
 }
 
 /// Scaled state: `u_i = s_i - d_i`.
@@ -239,10 +256,13 @@ fn solve_general(
     let mut s_trial = vec![0.0; n];
     let mut rhs = Vec::new();
     let snap = if bounded { opts.snap } else { -1.0 };
+    let mut time_eval = 0.0;
     let mut t = opts.t_stages.first().copied().unwrap_or(80.0);
     for &t_stage in &opts.t_stages {
         t = t_stage;
+        let te = std::time::Instant::now();
         flips += evaluate_at(&mut tri, &s, d, pole, t, snap, &mut u, &theta, &mut work, &mut ev)?;
+        time_eval += te.elapsed().as_secs_f64();
         let mut converged = false;
         for iter in 0..opts.max_iter_per_stage {
             gradient(&theta, &ev.sums, &var, &mut g);
@@ -350,7 +370,9 @@ fn solve_general(
                         s[v] + alpha * dir[v]
                     };
                 }
+                let te = std::time::Instant::now();
                 ls_flips += evaluate_at(&mut tri, &s_trial, d, pole, t, snap, &mut u, &theta, &mut work, &mut ev_trial)?;
+                time_eval += te.elapsed().as_secs_f64();
                 let decrease: f64 = (0..n).map(|v| g[v] * (s_trial[v] - s[v])).sum();
                 if ev_trial.energy.is_finite() && ev_trial.energy <= e0 + 1e-4 * decrease + roundoff {
                     accepted = true;
@@ -395,5 +417,12 @@ fn solve_general(
         flips,
         factorizations: spd.n_numeric,
         symbolic_analyses: spd.n_symbolic,
+        profile: SolveProfile {
+            evaluate: time_eval,
+            assemble: spd.time_assemble,
+            symbolic: spd.time_symbolic,
+            numeric: spd.time_numeric,
+            solve: spd.time_solve,
+        },
     })
 }

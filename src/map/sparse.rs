@@ -17,24 +17,57 @@ use faer::sparse::linalg::cholesky::{
     factorize_symbolic_cholesky, LltRef, SymbolicCholesky, SymmetricOrdering,
 };
 use faer::sparse::{SparseColMatRef, SymbolicSparseColMatRef};
-use faer::{Conj, MatMut, Par, Side};
+use faer::traits::ComplexField;
+use faer::{c64, Conj, MatMut, Par, Side};
+use std::ops::AddAssign;
 
-/// A reusable sparse Cholesky solver.
-#[derive(Default)]
-pub struct SparseSpd {
+/// Scalars of the solver: `f64` (Newton matrices) and `c64` (the layout's
+/// Hermitian normal equations).
+pub trait Scalar: ComplexField + Copy + AddAssign + Default {}
+impl Scalar for f64 {}
+impl Scalar for c64 {}
+
+/// A reusable sparse Cholesky solver for symmetric (Hermitian) positive
+/// definite matrices.
+pub struct SparseSpd<T: Scalar = f64> {
     col_ptr: Vec<usize>,
     row_idx: Vec<usize>,
-    values: Vec<f64>,
+    values: Vec<T>,
     symbolic: Option<SymbolicCholesky<usize>>,
-    factor: Vec<f64>,
+    factor: Vec<T>,
     /// Number of symbolic analyses performed (for the report).
     pub n_symbolic: usize,
     /// Number of numeric factorisations performed.
     pub n_numeric: usize,
-    scratch: Vec<(u64, f64)>,
+    /// Seconds spent in assembly, symbolic analysis, numeric factorisation
+    /// and solves.
+    pub time_assemble: f64,
+    pub time_symbolic: f64,
+    pub time_numeric: f64,
+    pub time_solve: f64,
+    scratch: Vec<(u64, T)>,
 }
 
-impl std::fmt::Debug for SparseSpd {
+impl<T: Scalar> Default for SparseSpd<T> {
+    fn default() -> Self {
+        SparseSpd {
+            col_ptr: Vec::new(),
+            row_idx: Vec::new(),
+            values: Vec::new(),
+            symbolic: None,
+            factor: Vec::new(),
+            n_symbolic: 0,
+            n_numeric: 0,
+            time_assemble: 0.0,
+            time_symbolic: 0.0,
+            time_numeric: 0.0,
+            time_solve: 0.0,
+            scratch: Vec::new(),
+        }
+    }
+}
+
+impl<T: Scalar> std::fmt::Debug for SparseSpd<T> {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         f.debug_struct("SparseSpd")
             .field("n", &self.col_ptr.len().saturating_sub(1))
@@ -43,18 +76,23 @@ impl std::fmt::Debug for SparseSpd {
     }
 }
 
-impl SparseSpd {
+impl<T: Scalar> SparseSpd<T> {
     /// Assemble the lower triangle from triplets `(row, col, value)` with
-    /// `row >= col` (duplicates are summed), factorise, and keep the factor.
-    /// `entries` is consumed as scratch.
-    pub fn factorize(&mut self, n: usize, entries: &mut Vec<(u32, u32, f64)>) -> Result<()> {
+    /// `row >= col` (duplicates are summed; for a Hermitian matrix the
+    /// entries must be those of the lower triangle), factorise, and keep the
+    /// factor. `entries` is consumed as scratch.
+    pub fn factorize(&mut self, n: usize, entries: &mut Vec<(u32, u32, T)>) -> Result<()> {
+        let t0 = std::time::Instant::now();
         // Sort by (col, row) through a packed key; sums are formed in a fixed
         // order, so the result does not depend on anything but the input.
         self.scratch.clear();
-        self.scratch.extend(entries.iter().map(|&(r, c, v)| {
-            let (r, c) = if r >= c { (r, c) } else { (c, r) };
-            (((c as u64) << 32) | r as u64, v)
-        }));
+        if let Some(&(r, c, _)) = entries.iter().find(|e| e.0 < e.1) {
+            return Err(Error::Algorithm {
+                stage: "map: sparse assembly",
+                message: format!("entry ({r}, {c}) above the diagonal"),
+            });
+        }
+        self.scratch.extend(entries.iter().map(|&(r, c, v)| (((c as u64) << 32) | r as u64, v)));
         self.scratch.sort_by_key(|x| x.0);
         let mut col_ptr = Vec::with_capacity(n + 1);
         let mut row_idx = Vec::with_capacity(self.scratch.len());
@@ -95,6 +133,8 @@ impl SparseSpd {
         self.row_idx = row_idx;
         self.values = values;
         let pattern = SymbolicSparseColMatRef::new_checked(n, n, &self.col_ptr, None, &self.row_idx);
+        self.time_assemble += t0.elapsed().as_secs_f64();
+        let t0 = std::time::Instant::now();
         if !same {
             let sym = factorize_symbolic_cholesky(
                 pattern,
@@ -107,10 +147,12 @@ impl SparseSpd {
                 message: format!("{e:?}"),
             })?;
             self.factor.clear();
-            self.factor.resize(sym.len_val(), 0.0);
+            self.factor.resize(sym.len_val(), T::default());
             self.symbolic = Some(sym);
             self.n_symbolic += 1;
         }
+        self.time_symbolic += t0.elapsed().as_secs_f64();
+        let t0 = std::time::Instant::now();
         let Some(sym) = self.symbolic.as_ref() else {
             return Err(Error::Algorithm {
                 stage: "map: sparse Cholesky",
@@ -119,12 +161,12 @@ impl SparseSpd {
         };
         let mat = SparseColMatRef::new(pattern, &self.values);
         let par = Par::Seq;
-        let req = sym.factorize_numeric_llt_scratch::<f64>(par, Default::default());
+        let req = sym.factorize_numeric_llt_scratch::<T>(par, Default::default());
         let mut mem = MemBuffer::try_new(req).map_err(|_| Error::Algorithm {
             stage: "map: sparse Cholesky",
             message: "out of memory".into(),
         })?;
-        sym.factorize_numeric_llt::<f64>(
+        sym.factorize_numeric_llt::<T>(
             &mut self.factor,
             mat,
             Side::Lower,
@@ -138,11 +180,19 @@ impl SparseSpd {
             message: format!("matrix not positive definite: {e:?}"),
         })?;
         self.n_numeric += 1;
+        self.time_numeric += t0.elapsed().as_secs_f64();
         Ok(())
     }
 
     /// Solve `A x = b` in place with the last factorisation.
-    pub fn solve(&self, b: &mut [f64]) -> Result<()> {
+    pub fn solve(&mut self, b: &mut [T]) -> Result<()> {
+        let t0 = std::time::Instant::now();
+        let r = self.solve_inner(b);
+        self.time_solve += t0.elapsed().as_secs_f64();
+        r
+    }
+
+    fn solve_inner(&self, b: &mut [T]) -> Result<()> {
         let Some(sym) = self.symbolic.as_ref() else {
             return Err(Error::Algorithm {
                 stage: "map: sparse solve",
@@ -156,8 +206,8 @@ impl SparseSpd {
             });
         }
         let par = Par::Seq;
-        let llt = LltRef::<usize, f64>::new(sym, &self.factor);
-        let req = sym.solve_in_place_scratch::<f64>(1, par);
+        let llt = LltRef::<usize, T>::new(sym, &self.factor);
+        let req = sym.solve_in_place_scratch::<T>(1, par);
         let mut mem = MemBuffer::try_new(req).map_err(|_| Error::Algorithm {
             stage: "map: sparse solve",
             message: "out of memory".into(),
@@ -168,6 +218,9 @@ impl SparseSpd {
         Ok(())
     }
 
+}
+
+impl SparseSpd<f64> {
     /// `y = A x` with the assembled matrix (lower triangle stored).
     pub fn mul(&self, x: &[f64], y: &mut [f64]) {
         y.iter_mut().for_each(|v| *v = 0.0);
