@@ -57,13 +57,25 @@ pub fn evaluate(intr: &Intrinsic, s: &Scaling, theta: &[f64], ev: &mut Evaluatio
 
 /// The energy given the angles (per halfedge) and angle sums.
 pub fn energy_from_angles(intr: &Intrinsic, s: &Scaling, theta: &[f64], angle: &[f64], sums: &[f64]) -> f64 {
+    use rayon::prelude::*;
     let he = &intr.he;
-    // Per halfedge: a r + 2 L(a), and -pi r / 2 (each edge has two halfedges).
-    let mut e_faces = 0.0;
-    for (h, &a) in angle.iter().enumerate() {
-        let (r, _) = intr.reduced(h as u32, s);
-        e_faces += a * r + 2.0 * lobachevsky(a) - 0.5 * PI * r;
-    }
+    // Per halfedge: a r + 2 L(a), and -pi r / 2 (each edge has two
+    // halfedges). Partial sums over fixed chunks, added in chunk order: the
+    // result does not depend on the thread count.
+    const CHUNK: usize = 4096;
+    let partial: Vec<f64> = angle
+        .par_chunks(CHUNK)
+        .enumerate()
+        .map(|(c, chunk)| {
+            let mut acc = 0.0;
+            for (k, &a) in chunk.iter().enumerate() {
+                let (r, _) = intr.reduced((c * CHUNK + k) as u32, s);
+                acc += a * r + 2.0 * lobachevsky(a) - 0.5 * PI * r;
+            }
+            acc
+        })
+        .collect();
+    let e_faces: f64 = partial.iter().sum();
     let mut e_vert = 0.0;
     for v in 0..he.n_vertices() {
         if v as u32 == s.pole {

@@ -89,6 +89,7 @@ pub struct Intrinsic {
 pub struct FlipWork {
     stack: Vec<u32>,
     queued: Vec<bool>,
+    flags: Vec<bool>,
 }
 
 /// `ln(e^a + e^b)` without overflow.
@@ -272,6 +273,20 @@ impl Intrinsic {
             return true;
         }
         let (v, size) = self.delaunay_value(e, s);
+        // Ties go to edges at the pole. Vertices on the pole's horocycle make
+        // exact ties: in the quad (p, h, i, j) with all legs to p equal,
+        // Ptolemy gives l_hj = l_hi + l_ij, so both diagonals pass the test.
+        // The right one is the edge (p, i): an edge (h, j) with the pole
+        // as one opposite corner (and not at its ends) must pass strictly.
+        if s.pole != NO_POLE {
+            let h0 = self.he.edge_half[e as usize];
+            let h1 = self.he.twin[h0 as usize];
+            let (a, b) = (self.he.tail[h0 as usize], self.he.tail[h1 as usize]);
+            let (c, d) = (self.he.tail[prev(h0) as usize], self.he.tail[prev(h1) as usize]);
+            if a != s.pole && b != s.pole && ((c == s.pole) != (d == s.pole)) {
+                return v > DELAUNAY_TOL * size;
+            }
+        }
         // NaN counts as Delaunay so that a broken value cannot loop forever;
         // the verification of the result catches any harm.
         v >= -DELAUNAY_TOL * size || v.is_nan()
@@ -299,12 +314,35 @@ impl Intrinsic {
     /// Flip to the intrinsic Delaunay triangulation of the lengths scaled by
     /// `s`, testing every edge first. Returns the number of flips.
     pub fn flip_to_delaunay(&mut self, s: &Scaling, work: &mut FlipWork) -> Result<u64> {
+        self.queue_non_delaunay(s, work);
+        self.run_flips(s, work, |_, _| {})
+    }
+
+    /// Test every edge (in parallel) and queue the non-Delaunay ones in
+    /// ascending order of edge id. The order does not depend on the thread
+    /// count, so neither do the flips that follow.
+    pub fn queue_non_delaunay(&self, s: &Scaling, work: &mut FlipWork) {
+        use rayon::prelude::*;
         let ne = self.he.n_edges();
         work.stack.clear();
         work.queued.clear();
-        work.queued.resize(ne, true);
-        work.stack.extend((0..ne as u32).rev());
-        self.run_flips(s, work, |_, _| {})
+        work.queued.resize(ne, false);
+        work.flags.clear();
+        work.flags.resize(ne, false);
+        work.flags
+            .par_chunks_mut(4096)
+            .enumerate()
+            .for_each(|(c, chunk)| {
+                for (k, flag) in chunk.iter_mut().enumerate() {
+                    *flag = !self.is_delaunay((c * 4096 + k) as u32, s);
+                }
+            });
+        for (e, &bad) in work.flags.iter().enumerate() {
+            if bad {
+                work.queued[e] = true;
+                work.stack.push(e as u32);
+            }
+        }
     }
 
     /// Flip to Delaunay starting from the suspect edges already queued in
@@ -360,20 +398,30 @@ impl Intrinsic {
     /// `angle[h]` is the angle opposite halfedge `h` (at `tail[prev h]`).
     /// Returns the number of faces violating the triangle inequality.
     pub fn angles(&self, s: &Scaling, angle: &mut Vec<f64>, cot: &mut Vec<f64>) -> usize {
+        use rayon::prelude::*;
         let nf = self.he.n_faces();
         angle.resize(3 * nf, 0.0);
         cot.resize(3 * nf, 0.0);
-        let mut bad = 0;
-        for f in 0..nf as u32 {
-            let t = triangle_angles(self.face_lams(f, s));
-            if !t.valid {
-                bad += 1;
-            }
-            let h = 3 * f as usize;
-            angle[h..h + 3].copy_from_slice(&t.angle);
-            cot[h..h + 3].copy_from_slice(&t.cot);
-        }
-        bad
+        // Faces in fixed chunks; each result depends on its face only.
+        const CHUNK: usize = 2048;
+        angle
+            .par_chunks_mut(3 * CHUNK)
+            .zip(cot.par_chunks_mut(3 * CHUNK))
+            .enumerate()
+            .map(|(c, (ang, ct))| {
+                let mut bad = 0usize;
+                for k in 0..ang.len() / 3 {
+                    let f = (c * CHUNK + k) as u32;
+                    let t = triangle_angles(self.face_lams(f, s));
+                    if !t.valid {
+                        bad += 1;
+                    }
+                    ang[3 * k..3 * k + 3].copy_from_slice(&t.angle);
+                    ct[3 * k..3 * k + 3].copy_from_slice(&t.cot);
+                }
+                bad
+            })
+            .sum()
     }
 
     /// Sum of the angles at each vertex given per-halfedge angles.

@@ -400,7 +400,14 @@ fn fast_path(
     let (lay, points) = lay_out(&sol, &d, pole)?;
     times.layout = t.elapsed().as_secs_f64();
     let t = Instant::now();
-    let ver = verify_solution(&sol, &d, pole, &lay, &points, opts)?;
+    let ver = verify_solution(&sol, &d, pole, &lay, &points, opts).map_err(|e| {
+        let held = fixed.iter().filter(|&&f| f).count();
+        let joined = sol.tri.he.outgoing(pole).filter(|&h| fixed[sol.tri.he.head(h) as usize]).count();
+        Error::Algorithm {
+            stage: "map: fast path",
+            message: format!("{e} [{held} vertices held on the boundary, {joined} still joined to the pole]"),
+        }
+    })?;
     times.verify = t.elapsed().as_secs_f64();
     Ok((sol, lay, points, ver))
 }

@@ -158,10 +158,7 @@ fn evaluate_at(
 ) -> Result<u64> {
     log_factors(s, d, u);
     let sc = Scaling { u, pole, t };
-    let ne = tri.he.n_edges() as u32;
-    for e in 0..ne {
-        work.push(e);
-    }
+    tri.queue_non_delaunay(&sc, work);
     let flips = tri.run_flips(&sc, work, |x, e| {
         let h = x.he.edge_half[e as usize];
         let (a, b) = (x.he.tail[h as usize], x.he.head(h));

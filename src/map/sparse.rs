@@ -18,6 +18,7 @@ use faer::sparse::linalg::cholesky::{
 };
 use faer::sparse::{SparseColMatRef, SymbolicSparseColMatRef};
 use faer::traits::ComplexField;
+use faer::perm::PermRef;
 use faer::{c64, Conj, MatMut, Par, Side};
 use std::ops::AddAssign;
 
@@ -46,6 +47,10 @@ pub struct SparseSpd<T: Scalar = f64> {
     pub time_numeric: f64,
     pub time_solve: f64,
     scratch: Vec<(u64, T)>,
+    /// The fill-reducing ordering of the last analysis (forward, inverse),
+    /// reused when the pattern changes but the size does not: flips change
+    /// a few entries, and the ordering stays good.
+    ordering: Option<(Vec<usize>, Vec<usize>)>,
 }
 
 impl<T: Scalar> Default for SparseSpd<T> {
@@ -63,6 +68,7 @@ impl<T: Scalar> Default for SparseSpd<T> {
             time_numeric: 0.0,
             time_solve: 0.0,
             scratch: Vec::new(),
+            ordering: None,
         }
     }
 }
@@ -93,7 +99,7 @@ impl<T: Scalar> SparseSpd<T> {
             });
         }
         self.scratch.extend(entries.iter().map(|&(r, c, v)| (((c as u64) << 32) | r as u64, v)));
-        self.scratch.sort_by_key(|x| x.0);
+        self.scratch.sort_unstable_by_key(|x| x.0);
         let mut col_ptr = Vec::with_capacity(n + 1);
         let mut row_idx = Vec::with_capacity(self.scratch.len());
         let mut values = Vec::with_capacity(self.scratch.len());
@@ -136,16 +142,23 @@ impl<T: Scalar> SparseSpd<T> {
         self.time_assemble += t0.elapsed().as_secs_f64();
         let t0 = std::time::Instant::now();
         if !same {
-            let sym = factorize_symbolic_cholesky(
-                pattern,
-                Side::Lower,
-                SymmetricOrdering::Amd,
-                Default::default(),
-            )
-            .map_err(|e| Error::Algorithm {
-                stage: "map: sparse Cholesky (symbolic)",
-                message: format!("{e:?}"),
+            let reuse = self.ordering.as_ref().filter(|(f, _)| f.len() == n);
+            let ordering = match reuse {
+                Some((fwd, inv)) => SymmetricOrdering::Custom(PermRef::new_checked(fwd, inv, n)),
+                None => SymmetricOrdering::Amd,
+            };
+            let sym = factorize_symbolic_cholesky(pattern, Side::Lower, ordering, Default::default()).map_err(|e| {
+                Error::Algorithm {
+                    stage: "map: sparse Cholesky (symbolic)",
+                    message: format!("{e:?}"),
+                }
             })?;
+            if reuse.is_none() {
+                self.ordering = sym.perm().map(|p| {
+                    let (f, i) = p.arrays();
+                    (f.to_vec(), i.to_vec())
+                });
+            }
             self.factor.clear();
             self.factor.resize(sym.len_val(), T::default());
             self.symbolic = Some(sym);

@@ -162,6 +162,7 @@ pub fn verify(
         }
     }
     let mut max_excess = f64::NEG_INFINITY;
+    let mut worst_interior = 0usize;
     for v in 0..n {
         if v as u32 == pole {
             continue;
@@ -170,14 +171,18 @@ pub fn verify(
             let excess = disk_angle[v] - PI;
             max_excess = max_excess.max(excess);
         } else {
-            out.max_interior_angle_error = out.max_interior_angle_error.max((sums[v] - 2.0 * PI).abs());
+            let err = (sums[v] - 2.0 * PI).abs();
+            if err > out.max_interior_angle_error {
+                out.max_interior_angle_error = err;
+                worst_interior = v;
+            }
         }
     }
     out.max_boundary_angle_excess = if max_excess.is_finite() { max_excess } else { 0.0 };
     if out.max_interior_angle_error > tol.interior_angle {
         return Err(fail(format!(
-            "interior angle sums are off by up to {:.3e} rad",
-            out.max_interior_angle_error
+            "interior angle sums are off by up to {:.3e} rad (vertex {worst_interior}, angle sum {:.6})",
+            out.max_interior_angle_error, sums[worst_interior]
         )));
     }
     if out.max_boundary_angle_excess > tol.boundary_angle {
