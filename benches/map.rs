@@ -48,16 +48,21 @@ fn peak_rss_mb() -> f64 {
     std::fs::read_to_string("/proc/self/status")
         .ok()
         .and_then(|s| {
-            s.lines()
-                .find(|l| l.starts_with("VmHWM:"))
-                .and_then(|l| l.split_whitespace().nth(1).and_then(|v| v.parse::<f64>().ok()))
+            s.lines().find(|l| l.starts_with("VmHWM:")).and_then(|l| {
+                l.split_whitespace()
+                    .nth(1)
+                    .and_then(|v| v.parse::<f64>().ok())
+            })
         })
         .map(|kb| kb / 1024.0)
         .unwrap_or(f64::NAN)
 }
 
 fn main() {
-    let args: Vec<String> = std::env::args().skip(1).filter(|a| !a.starts_with("--")).collect();
+    let args: Vec<String> = std::env::args()
+        .skip(1)
+        .filter(|a| !a.starts_with("--"))
+        .collect();
     let sizes: Vec<(&str, u32)> = [("10k", 5u32), ("40k", 6), ("160k", 7)]
         .into_iter()
         .filter(|(name, _)| args.is_empty() || args.iter().any(|a| a == name))
@@ -115,7 +120,10 @@ fn main() {
         }
         if std::env::var("HOROSPHERE_BENCH_LOG").is_ok() {
             for it in &r.iteration_log {
-                println!("      T {:>4} iter {:>2}: pg {:.2e}, active {}, step {}, flips {}", it.t, it.iter, it.max_projected_gradient, it.active, it.step, it.flips);
+                println!(
+                    "      T {:>4} iter {:>2}: pg {:.2e}, active {}, step {}, flips {}",
+                    it.t, it.iter, it.max_projected_gradient, it.active, it.step, it.flips
+                );
             }
         }
         results.push(serde_json::json!({

@@ -47,7 +47,11 @@ fn dot(a: V3, b: V3) -> f64 {
     a[0] * b[0] + a[1] * b[1] + a[2] * b[2]
 }
 fn cross(a: V3, b: V3) -> V3 {
-    [a[1] * b[2] - a[2] * b[1], a[2] * b[0] - a[0] * b[2], a[0] * b[1] - a[1] * b[0]]
+    [
+        a[1] * b[2] - a[2] * b[1],
+        a[2] * b[0] - a[0] * b[2],
+        a[0] * b[1] - a[1] * b[0],
+    ]
 }
 fn norm(a: V3) -> f64 {
     dot(a, a).sqrt()
@@ -154,7 +158,9 @@ fn moebius_fit_residual(from: &[V3], to: &[V3]) -> (f64, f64) {
     // Three well-spread points of `from`.
     let n = from.len();
     let a = 0;
-    let b = (0..n).max_by(|&i, &j| norm(sub(from[i], from[a])).total_cmp(&norm(sub(from[j], from[a])))).unwrap();
+    let b = (0..n)
+        .max_by(|&i, &j| norm(sub(from[i], from[a])).total_cmp(&norm(sub(from[j], from[a]))))
+        .unwrap();
     let c = (0..n)
         .max_by(|&i, &j| {
             let di = norm(sub(from[i], from[a])).min(norm(sub(from[i], from[b])));
@@ -260,11 +266,20 @@ fn common_checks(r: &SphereMap) {
         assert!((norm(*p) - 1.0).abs() <= 1e-12, "point off the sphere");
     }
     assert_eq!(r.points[r.pole as usize], [0.0, 0.0, 1.0]);
-    assert!(v.max_interior_angle_error < 1e-9, "interior angle error {}", v.max_interior_angle_error);
-    assert!(v.max_boundary_angle_excess <= 1e-9, "boundary excess {}", v.max_boundary_angle_excess);
+    assert!(
+        v.max_interior_angle_error < 1e-9,
+        "interior angle error {}",
+        v.max_interior_angle_error
+    );
+    assert!(
+        v.max_boundary_angle_excess <= 1e-9,
+        "boundary excess {}",
+        v.max_boundary_angle_excess
+    );
     // The hull triangulation: no inverted face (outward normal), and it is
     // a closed genus-0 surface on the points.
-    let he = Halfedges::from_faces(r.points.len(), &r.hull_faces).expect("hull faces form a closed surface");
+    let he = Halfedges::from_faces(r.points.len(), &r.hull_faces)
+        .expect("hull faces form a closed surface");
     assert_eq!(he.euler_characteristic(), 2);
     for t in &r.hull_faces {
         let [a, b, c] = t.map(|i| r.points[i as usize]);
@@ -310,13 +325,23 @@ fn hull_by_flips(points: &[V3], faces: &[[u32; 3]]) -> Vec<[u32; 3]> {
     for e in 0..he.n_edges() as u32 {
         let h0 = he.edge_half[e as usize];
         let h1 = he.twin[h0 as usize];
-        let (a, b, c, d) = (he.tail[h0 as usize], he.head(h0), he.tail[prev(h0) as usize], he.tail[prev(h1) as usize]);
+        let (a, b, c, d) = (
+            he.tail[h0 as usize],
+            he.head(h0),
+            he.tail[prev(h0) as usize],
+            he.tail[prev(h1) as usize],
+        );
         let p = |v: u32| points[v as usize];
         let nrm = cross(sub(p(b), p(a)), sub(p(c), p(a)));
-        assert!(dot(nrm, sub(p(d), p(a))) <= 1e-15, "hull_by_flips: reflex edge left");
+        assert!(
+            dot(nrm, sub(p(d), p(a))) <= 1e-15,
+            "hull_by_flips: reflex edge left"
+        );
     }
     let _ = next;
-    (0..he.n_faces()).map(|f| [he.tail[3 * f], he.tail[3 * f + 1], he.tail[3 * f + 2]]).collect()
+    (0..he.n_faces())
+        .map(|f| [he.tail[3 * f], he.tail[3 * f + 1], he.tail[3 * f + 2]])
+        .collect()
 }
 
 fn jittered_inscribed(level: u32, jitter: f64, seed: u64) -> TriMesh {
@@ -326,7 +351,13 @@ fn jittered_inscribed(level: u32, jitter: f64, seed: u64) -> TriMesh {
     let pts: Vec<V3> = m
         .positions
         .iter()
-        .map(|p| unit([p[0] + jitter * h * rng.normal(), p[1] + jitter * h * rng.normal(), p[2] + jitter * h * rng.normal()]))
+        .map(|p| {
+            unit([
+                p[0] + jitter * h * rng.normal(),
+                p[1] + jitter * h * rng.normal(),
+                p[2] + jitter * h * rng.normal(),
+            ])
+        })
         .collect();
     let faces = hull_by_flips(&pts, &m.faces);
     TriMesh::new(pts, faces).unwrap()
@@ -352,7 +383,12 @@ fn run_both(mesh: &TriMesh) -> SphereMap {
     };
     let full = map_to_sphere(mesh, &opts).unwrap_or_else(|e| panic!("full method failed: {e}"));
     common_checks(&full);
-    let worst = fast.points.iter().zip(&full.points).map(|(p, q)| norm(sub(*p, *q))).fold(0.0, f64::max);
+    let worst = fast
+        .points
+        .iter()
+        .zip(&full.points)
+        .map(|(p, q)| norm(sub(*p, *q)))
+        .fold(0.0, f64::max);
     assert!(worst < 1e-8, "fast and full paths differ by {worst}");
     fast
 }
@@ -402,7 +438,14 @@ fn both_starting_points_reach_the_same_polyhedron() {
         *p = [p[0] * s, p[1] * s, p[2] * s];
     }
     let mesh = TriMesh::new(bumpy, m.faces.clone()).unwrap();
-    let a = map_to_sphere(&mesh, &MapOptions { fast_path: false, ..MapOptions::default() }).unwrap();
+    let a = map_to_sphere(
+        &mesh,
+        &MapOptions {
+            fast_path: false,
+            ..MapOptions::default()
+        },
+    )
+    .unwrap();
     common_checks(&a);
     let mut opts = MapOptions {
         fast_path: false,
@@ -411,7 +454,12 @@ fn both_starting_points_reach_the_same_polyhedron() {
     opts.solver.start = horosphere::map::solver::Start::Bounds;
     let b = map_to_sphere(&mesh, &opts).unwrap();
     common_checks(&b);
-    let worst = a.points.iter().zip(&b.points).map(|(p, q)| norm(sub(*p, *q))).fold(0.0, f64::max);
+    let worst = a
+        .points
+        .iter()
+        .zip(&b.points)
+        .map(|(p, q)| norm(sub(*p, *q)))
+        .fold(0.0, f64::max);
     assert!(worst < 1e-9, "{worst}");
     assert!(b.report.iterations >= a.report.iterations);
 }
@@ -422,9 +470,16 @@ fn fast_path_agrees_with_the_full_method() {
     // after verification; the full method (distances, bounds) must give the
     // same points, since the answer is unique up to Moebius and both use the
     // same normalisation.
-    for (k, mesh) in [folded_sphere(3, 0.2, 11), jittered_inscribed(3, 0.1, 6)].iter().enumerate() {
+    for (k, mesh) in [folded_sphere(3, 0.2, 11), jittered_inscribed(3, 0.1, 6)]
+        .iter()
+        .enumerate()
+    {
         let fast = run(mesh);
-        assert_eq!(fast.report.path, "fast", "case {k}: {:?}", fast.report.fast_path_rejected);
+        assert_eq!(
+            fast.report.path, "fast",
+            "case {k}: {:?}",
+            fast.report.fast_path_rejected
+        );
         let opts = MapOptions {
             fast_path: false,
             ..MapOptions::default()
@@ -433,7 +488,12 @@ fn fast_path_agrees_with_the_full_method() {
         common_checks(&full);
         assert_eq!(full.report.path, "full");
         assert!(full.report.flips_horocycles > 0);
-        let worst = fast.points.iter().zip(&full.points).map(|(p, q)| norm(sub(*p, *q))).fold(0.0, f64::max);
+        let worst = fast
+            .points
+            .iter()
+            .zip(&full.points)
+            .map(|(p, q)| norm(sub(*p, *q)))
+            .fold(0.0, f64::max);
         assert!(worst < 1e-9, "case {k}: {worst}");
     }
 }
@@ -452,7 +512,6 @@ fn the_fit_helper_detects_a_non_moebius_change() {
     let (bad, _) = moebius_fit_residual(&m.positions, &moved);
     assert!(bad > 2e-5, "{bad}");
 }
-
 
 // ---------------------------------------------------------------- revolution
 
@@ -499,7 +558,18 @@ impl Profile {
 /// Adaptive Simpson quadrature (Lyness' error estimate with Richardson
 /// correction) of `f` on `[a, b]` to absolute tolerance `tol`.
 fn adaptive_simpson(f: &dyn Fn(f64) -> f64, a: f64, b: f64, tol: f64) -> f64 {
-    fn rec(f: &dyn Fn(f64) -> f64, a: f64, b: f64, fa: f64, fm: f64, fb: f64, whole: f64, tol: f64, depth: u32) -> f64 {
+    #[allow(clippy::too_many_arguments)]
+    fn rec(
+        f: &dyn Fn(f64) -> f64,
+        a: f64,
+        b: f64,
+        fa: f64,
+        fm: f64,
+        fb: f64,
+        whole: f64,
+        tol: f64,
+        depth: u32,
+    ) -> f64 {
         let m = 0.5 * (a + b);
         let (lm, rm) = (0.5 * (a + m), 0.5 * (m + b));
         let (flm, frm) = (f(lm), f(rm));
@@ -509,7 +579,8 @@ fn adaptive_simpson(f: &dyn Fn(f64) -> f64, a: f64, b: f64, tol: f64) -> f64 {
         if depth == 0 || delta.abs() <= 15.0 * tol {
             return left + right + delta / 15.0;
         }
-        rec(f, a, m, fa, flm, fm, left, 0.5 * tol, depth - 1) + rec(f, m, b, fm, frm, fb, right, 0.5 * tol, depth - 1)
+        rec(f, a, m, fa, flm, fm, left, 0.5 * tol, depth - 1)
+            + rec(f, m, b, fm, frm, fb, right, 0.5 * tol, depth - 1)
     }
     let (fa, fb, fm) = (f(a), f(b), f(0.5 * (a + b)));
     let whole = (b - a) / 6.0 * (fa + 4.0 * fm + fb);
@@ -539,7 +610,11 @@ fn parameter_of_colatitude(p: Profile, theta: f64) -> f64 {
             hi = t;
         }
         let step = t - f / p.integrand(t);
-        t = if step > lo && step < hi { step } else { 0.5 * (lo + hi) };
+        t = if step > lo && step < hi {
+            step
+        } else {
+            0.5 * (lo + hi)
+        };
     }
     t
 }
@@ -553,7 +628,11 @@ fn revolution_mesh(p: Profile, level: u32) -> (Vec<V3>, TriMesh, Vec<f64>) {
     // Orthonormal frame (e1, e2, a).
     let e1 = unit(cross(a, [0.0, 0.0, 1.0]));
     let e2 = cross(a, e1);
-    let sphere: Vec<V3> = ico.positions.iter().map(|q| [dot(*q, e1), dot(*q, e2), dot(*q, a)]).collect();
+    let sphere: Vec<V3> = ico
+        .positions
+        .iter()
+        .map(|q| [dot(*q, e1), dot(*q, e2), dot(*q, a)])
+        .collect();
     let mut ts = Vec::with_capacity(sphere.len());
     let surf: Vec<V3> = sphere
         .iter()
@@ -597,7 +676,12 @@ fn revolution_surfaces_converge_to_the_classical_map() {
                 r.report.iterations
             );
             if level == 3 {
-                let samples: Vec<[f64; 2]> = ts.iter().zip(&sphere).step_by(5).map(|(t, q)| [*t, q[2].clamp(-1.0, 1.0).acos()]).collect();
+                let samples: Vec<[f64; 2]> = ts
+                    .iter()
+                    .zip(&sphere)
+                    .step_by(5)
+                    .map(|(t, q)| [*t, q[2].clamp(-1.0, 1.0).acos()])
+                    .collect();
                 artifacts.push(serde_json::json!({
                     "profile": p.name(),
                     "samples_t_theta": samples,
@@ -607,7 +691,11 @@ fn revolution_surfaces_converge_to_the_classical_map() {
         }
         // Error falls with refinement (about h^2 in the prototype: 2.6e-3 at
         // 162 vertices, 7.1e-4 at 642 for the ellipsoid).
-        assert!(errs[1] < 0.6 * errs[0] && errs[2] < 0.6 * errs[1], "{}: {errs:?}", p.name());
+        assert!(
+            errs[1] < 0.6 * errs[0] && errs[2] < 0.6 * errs[1],
+            "{}: {errs:?}",
+            p.name()
+        );
         assert!(errs[2] < 2e-3, "{}: {errs:?}", p.name());
     }
     // The profile integral itself against a closed form: for the unit sphere
@@ -630,7 +718,13 @@ fn folded_sphere(level: u32, amplitude: f64, seed: u64) -> TriMesh {
     let mut m = icosphere(level, 1.0);
     let mut rng = Rng(seed);
     let waves: Vec<(V3, f64, f64)> = (0..12)
-        .map(|_| (unit([rng.normal(), rng.normal(), rng.normal()]), 4.0 + 8.0 * rng.f(), 2.0 * PI * rng.f()))
+        .map(|_| {
+            (
+                unit([rng.normal(), rng.normal(), rng.normal()]),
+                4.0 + 8.0 * rng.f(),
+                2.0 * PI * rng.f(),
+            )
+        })
         .collect();
     for p in &mut m.positions {
         let mut r = 1.0;
@@ -657,7 +751,11 @@ fn robust_noisy_bumpy_sphere_with_slivers_and_needles() {
         let (a, b) = (t[0] as usize, t[1] as usize);
         if k % 2 == 0 {
             let (pa, pb) = (m.positions[a], m.positions[b]);
-            m.positions[a] = [pb[0] + 1e-3 * (pa[0] - pb[0]), pb[1] + 1e-3 * (pa[1] - pb[1]), pb[2] + 1e-3 * (pa[2] - pb[2])];
+            m.positions[a] = [
+                pb[0] + 1e-3 * (pa[0] - pb[0]),
+                pb[1] + 1e-3 * (pa[1] - pb[1]),
+                pb[2] + 1e-3 * (pa[2] - pb[2]),
+            ];
         }
     }
     let r = run_both(&m);
@@ -674,18 +772,27 @@ fn robust_edge_length_ratio_1000() {
     let mob = Mob([C(k, 0.0), C(0.0, 0.0), C(0.0, 0.0), C(1.0 / k, 0.0)]);
     let moved: Vec<V3> = base.positions.iter().map(|p| mob.apply(*p)).collect();
     let mesh = TriMesh::new(moved.clone(), base.faces.clone()).unwrap();
-    let lens: Vec<f64> = mesh.faces.iter().flat_map(|t| (0..3).map(move |k| (t[k], t[(k + 1) % 3]))).map(|(a, b)| norm(sub(moved[a as usize], moved[b as usize]))).collect();
-    let ratio = lens.iter().cloned().fold(0.0, f64::max) / lens.iter().cloned().fold(f64::INFINITY, f64::min);
+    let lens: Vec<f64> = mesh
+        .faces
+        .iter()
+        .flat_map(|t| (0..3).map(move |k| (t[k], t[(k + 1) % 3])))
+        .map(|(a, b)| norm(sub(moved[a as usize], moved[b as usize])))
+        .collect();
+    let ratio = lens.iter().cloned().fold(0.0, f64::max)
+        / lens.iter().cloned().fold(f64::INFINITY, f64::min);
     assert!(ratio > 1000.0, "ratio {ratio}");
     let r = run_both(&mesh);
     let (fit, _) = moebius_fit_residual(&r.points, &moved);
     assert!(fit < 1e-8, "{fit}");
     // Also with bumps (no longer inscribed): converges.
     let mut rng = Rng(5);
-    let bumpy: Vec<V3> = moved.iter().map(|p| {
-        let s = 1.0 + 0.05 * rng.f();
-        [p[0] * s, p[1] * s, p[2] * s]
-    }).collect();
+    let bumpy: Vec<V3> = moved
+        .iter()
+        .map(|p| {
+            let s = 1.0 + 0.05 * rng.f();
+            [p[0] * s, p[1] * s, p[2] * s]
+        })
+        .collect();
     run_both(&TriMesh::new(bumpy, base.faces.clone()).unwrap());
 }
 
@@ -717,14 +824,21 @@ fn robust_strongly_non_delaunay_triangulation() {
         let h1 = he.twin[h0 as usize];
         let (a, b) = (he.tail[h0 as usize], he.head(h0));
         let (c, d) = (he.tail[prev(h0) as usize], he.tail[prev(h1) as usize]);
-        if c != d && he.degree(a) > 3 && he.degree(b) > 3 && !edges.contains(&(c.min(d), c.max(d))) && he.flip(e) {
+        if c != d
+            && he.degree(a) > 3
+            && he.degree(b) > 3
+            && !edges.contains(&(c.min(d), c.max(d)))
+            && he.flip(e)
+        {
             edges.remove(&(a.min(b), a.max(b)));
             edges.insert((c.min(d), c.max(d)));
             flips += 1;
         }
     }
     assert!(flips > 1000);
-    let faces: Vec<[u32; 3]> = (0..he.n_faces()).map(|f| [he.tail[3 * f], he.tail[3 * f + 1], he.tail[3 * f + 2]]).collect();
+    let faces: Vec<[u32; 3]> = (0..he.n_faces())
+        .map(|f| [he.tail[3 * f], he.tail[3 * f + 1], he.tail[3 * f + 2]])
+        .collect();
     let mesh = TriMesh::new(m.positions.clone(), faces).unwrap();
     let r = run_both(&mesh);
     assert!(r.report.flips_delaunay > 500, "{}", r.report.flips_delaunay);
@@ -774,7 +888,10 @@ fn expect_not_ready(m: &TriMesh, needle: &str) {
     match map_to_sphere(m, &MapOptions::default()) {
         Err(Error::NotReady(msg)) => {
             assert!(msg.contains(needle), "{msg}");
-            assert!(msg.contains("horosphere inspect") && msg.contains("horosphere repair"), "{msg}");
+            assert!(
+                msg.contains("horosphere inspect") && msg.contains("horosphere repair"),
+                "{msg}"
+            );
         }
         Err(e) => panic!("expected NotReady, got {e}"),
         Ok(_) => panic!("expected an error"),
@@ -791,8 +908,10 @@ fn rejects_bad_surfaces() {
     // Two components.
     let mut m = base.clone();
     let n = m.n_vertices() as u32;
-    m.positions.extend(base.positions.iter().map(|p| [p[0] + 5.0, p[1], p[2]]));
-    m.faces.extend(base.faces.iter().map(|t| [t[0] + n, t[1] + n, t[2] + n]));
+    m.positions
+        .extend(base.positions.iter().map(|p| [p[0] + 5.0, p[1], p[2]]));
+    m.faces
+        .extend(base.faces.iter().map(|t| [t[0] + n, t[1] + n, t[2] + n]));
     expect_not_ready(&m, "2 connected components");
     // Genus 1.
     expect_not_ready(&torus(3.0, 1.0, 24, 12), "genus 1");
@@ -816,7 +935,10 @@ fn rejects_bad_surfaces() {
         pole: PoleChoice::Vertex(1_000_000),
         ..MapOptions::default()
     };
-    assert!(matches!(map_to_sphere(&base, &opts), Err(Error::Invalid(_))));
+    assert!(matches!(
+        map_to_sphere(&base, &opts),
+        Err(Error::Invalid(_))
+    ));
 }
 
 #[test]
@@ -832,8 +954,16 @@ fn a_failed_solve_keeps_its_iteration_log() {
             assert!(matches!(f.error, Error::Algorithm { .. }));
             assert_eq!(f.report.status, "failed");
             assert_eq!(f.report.iteration_log.len(), 2);
-            assert!(f.report.error.as_deref().unwrap_or("").contains("no convergence"));
-            assert!(f.report.iteration_log[0].max_projected_gradient > f.report.iteration_log[1].max_projected_gradient);
+            assert!(f
+                .report
+                .error
+                .as_deref()
+                .unwrap_or("")
+                .contains("no convergence"));
+            assert!(
+                f.report.iteration_log[0].max_projected_gradient
+                    > f.report.iteration_log[1].max_projected_gradient
+            );
         }
     }
 }
@@ -847,7 +977,10 @@ fn temp_dir(tag: &str) -> std::path::PathBuf {
 }
 
 fn horosphere(args: &[&std::ffi::OsStr]) -> std::process::Output {
-    std::process::Command::new(env!("CARGO_BIN_EXE_horosphere")).args(args).output().unwrap()
+    std::process::Command::new(env!("CARGO_BIN_EXE_horosphere"))
+        .args(args)
+        .output()
+        .unwrap()
 }
 
 #[test]
@@ -873,7 +1006,11 @@ fn command_line_maps_and_reports() {
         "--hull-out".as_ref(),
         hull.as_os_str(),
     ]);
-    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
     let s = horosphere::io::read_mesh(&sphere).unwrap();
     assert_eq!(s.faces, m.faces);
     assert_eq!(s.n_vertices(), m.n_vertices());
@@ -885,10 +1022,16 @@ fn command_line_maps_and_reports() {
     let h = horosphere::io::read_mesh(&hull).unwrap();
     assert_eq!(h.n_vertices(), m.n_vertices());
     assert_eq!(h.n_faces(), m.n_faces());
-    let rep: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&report).unwrap()).unwrap();
+    let rep: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&report).unwrap()).unwrap();
     assert_eq!(rep["status"], "ok");
     assert_eq!(rep["pole"], 12);
-    assert!(rep["verification"]["max_interior_angle_error"].as_f64().unwrap() < 1e-9);
+    assert!(
+        rep["verification"]["max_interior_angle_error"]
+            .as_f64()
+            .unwrap()
+            < 1e-9
+    );
     assert!(rep["iteration_log"].as_array().unwrap().len() >= 2);
     assert_eq!(rep["inverted_faces"], 0);
 }
@@ -901,15 +1044,30 @@ fn command_line_refuses_bad_input_and_writes_nothing() {
     m.faces.pop();
     horosphere::io::write_mesh(&surf, &m).unwrap();
     let sphere = dir.join("sphere.surf.gii");
-    let out = horosphere(&["map".as_ref(), surf.as_os_str(), "-o".as_ref(), sphere.as_os_str()]);
+    let out = horosphere(&[
+        "map".as_ref(),
+        surf.as_os_str(),
+        "-o".as_ref(),
+        sphere.as_os_str(),
+    ]);
     assert_eq!(out.status.code(), Some(1));
     let err = String::from_utf8_lossy(&out.stderr);
-    assert!(err.contains("open.obj") && err.contains("not closed") && err.contains("horosphere repair"), "{err}");
+    assert!(
+        err.contains("open.obj") && err.contains("not closed") && err.contains("horosphere repair"),
+        "{err}"
+    );
     assert!(!sphere.exists());
     // A bad --pole value.
     let ok = dir.join("ok.obj");
     horosphere::io::write_mesh(&ok, &icosphere(1, 1.0)).unwrap();
-    let out = horosphere(&["map".as_ref(), ok.as_os_str(), "-o".as_ref(), sphere.as_os_str(), "--pole".as_ref(), "north".as_ref()]);
+    let out = horosphere(&[
+        "map".as_ref(),
+        ok.as_os_str(),
+        "-o".as_ref(),
+        sphere.as_os_str(),
+        "--pole".as_ref(),
+        "north".as_ref(),
+    ]);
     assert_eq!(out.status.code(), Some(1));
     assert!(String::from_utf8_lossy(&out.stderr).contains("--pole north"));
     assert!(!sphere.exists());

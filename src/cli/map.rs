@@ -56,7 +56,10 @@ fn write_report(path: &Path, report: &MapReport) -> Result<()> {
 /// Run `horosphere map`.
 pub fn run(args: &MapArgs) -> Result<ExitCode> {
     if !(args.radius.is_finite() && args.radius > 0.0) {
-        return Err(Error::Invalid(format!("--radius {}: expected a positive number of millimetres", args.radius)));
+        return Err(Error::Invalid(format!(
+            "--radius {}: expected a positive number of millimetres",
+            args.radius
+        )));
     }
     let opts = MapOptions {
         pole: parse_pole(&args.pole)?,

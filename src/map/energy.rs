@@ -56,7 +56,13 @@ pub fn evaluate(intr: &Intrinsic, s: &Scaling, theta: &[f64], ev: &mut Evaluatio
 }
 
 /// The energy given the angles (per halfedge) and angle sums.
-pub fn energy_from_angles(intr: &Intrinsic, s: &Scaling, theta: &[f64], angle: &[f64], sums: &[f64]) -> f64 {
+pub fn energy_from_angles(
+    intr: &Intrinsic,
+    s: &Scaling,
+    theta: &[f64],
+    angle: &[f64],
+    sums: &[f64],
+) -> f64 {
     use rayon::prelude::*;
     let he = &intr.he;
     // Per halfedge: a r + 2 L(a), and -pi r / 2 (each edge has two
@@ -113,8 +119,16 @@ pub fn edge_weight(intr: &Intrinsic, cot: &[f64], h: u32, clip: f64, pole: u32) 
             let f = 3 * (x / 3) as usize;
             intr.he.tail[f] == pole || intr.he.tail[f + 1] == pole || intr.he.tail[f + 2] == pole
         };
-        let c1 = if touches(h) { c1.clamp(-clip, clip) } else { c1.clamp(-1e6, 1e6) };
-        let c2 = if touches(t) { c2.clamp(-clip, clip) } else { c2.clamp(-1e6, 1e6) };
+        let c1 = if touches(h) {
+            c1.clamp(-clip, clip)
+        } else {
+            c1.clamp(-1e6, 1e6)
+        };
+        let c2 = if touches(t) {
+            c2.clamp(-clip, clip)
+        } else {
+            c2.clamp(-1e6, 1e6)
+        };
         (0.5 * (c1 + c2)).max(0.0)
     } else {
         0.5 * (c1 + c2)
@@ -191,12 +205,19 @@ mod tests {
             .collect();
         let mut x = Intrinsic::from_mesh(&pos, &m.faces).unwrap();
         let z = vec![0.0; x.he.n_vertices()];
-        x.flip_to_delaunay(&Scaling::plain(&z), &mut FlipWork::default()).unwrap();
+        x.flip_to_delaunay(&Scaling::plain(&z), &mut FlipWork::default())
+            .unwrap();
         x
     }
 
     /// Energy at `u` after flipping (a copy of) `base` to Delaunay there.
-    fn energy_at(base: &Intrinsic, u: &[f64], pole: u32, t: f64, theta: &[f64]) -> (f64, Evaluation, Intrinsic) {
+    fn energy_at(
+        base: &Intrinsic,
+        u: &[f64],
+        pole: u32,
+        t: f64,
+        theta: &[f64],
+    ) -> (f64, Evaluation, Intrinsic) {
         let mut x = base.clone();
         let s = Scaling { u, pole, t };
         x.flip_to_delaunay(&s, &mut FlipWork::default()).unwrap();
@@ -212,7 +233,9 @@ mod tests {
         let theta: Vec<f64> = (0..n).map(|_| 2.0 * PI * (0.8 + 0.4 * rng.f())).collect();
         let u: Vec<f64> = (0..n).map(|_| 1.5 * (rng.f() - 0.5)).collect();
         let (_, ev, x) = energy_at(&base, &u, pole, t, &theta);
-        let var: Vec<u32> = (0..n as u32).map(|v| if v == pole { FIXED } else { v }).collect();
+        let var: Vec<u32> = (0..n as u32)
+            .map(|v| if v == pole { FIXED } else { v })
+            .collect();
         let mut g = vec![0.0; n];
         gradient(&theta, &ev.sums, &var, &mut g);
         // Gradient against central differences of the energy.
@@ -226,7 +249,9 @@ mod tests {
             up[i] += h;
             let mut um = u.clone();
             um[i] -= h;
-            let fd = (energy_at(&base, &up, pole, t, &theta).0 - energy_at(&base, &um, pole, t, &theta).0) / (2.0 * h);
+            let fd = (energy_at(&base, &up, pole, t, &theta).0
+                - energy_at(&base, &um, pole, t, &theta).0)
+                / (2.0 * h);
             worst_g = worst_g.max((fd - g[i]).abs());
         }
         assert!(worst_g < 1e-6, "gradient vs finite differences: {worst_g}");
@@ -234,7 +259,9 @@ mod tests {
         let mut entries = Vec::new();
         hessian_entries(&x, &ev.cot, &var, f64::INFINITY, 0.0, pole, &mut entries);
         let mut spd = SparseSpd::default();
-        let dir: Vec<f64> = (0..n).map(|v| if v as u32 == pole { 0.0 } else { rng.f() - 0.5 }).collect();
+        let dir: Vec<f64> = (0..n)
+            .map(|v| if v as u32 == pole { 0.0 } else { rng.f() - 0.5 })
+            .collect();
         // Assemble via the solver's matrix product (the pole row is empty:
         // give it a unit diagonal so the factorisation goes through).
         if pole != NO_POLE {
@@ -256,21 +283,44 @@ mod tests {
         let (_, evm, _) = energy_at(&base, &um, pole, t, &theta);
         let mut worst_h: f64 = 0.0;
         let mut scale: f64 = 0.0;
-        for i in 0..n {
+        for (i, &hvi) in hv.iter().enumerate() {
             if i as u32 == pole {
                 continue;
             }
             // g = Theta - sums, so H dir = -(d sums / d dir).
             let fd = -(evp.sums[i] - evm.sums[i]) / (2.0 * eps);
-            worst_h = worst_h.max((fd - hv[i]).abs());
-            scale = scale.max(hv[i].abs());
+            worst_h = worst_h.max((fd - hvi).abs());
+            scale = scale.max(hvi.abs());
         }
         assert!(scale > 1e-3, "the test direction should move the angles");
-        assert!(worst_h < 1e-6 * scale.max(1.0), "Hessian vs finite differences: {worst_h} (scale {scale})");
+        assert!(
+            worst_h < 1e-6 * scale.max(1.0),
+            "Hessian vs finite differences: {worst_h} (scale {scale})"
+        );
         // Convexity along the direction: second difference of E is >= 0.
         let e0v = energy_at(&base, &u, pole, t, &theta).0;
-        let ep = energy_at(&base, &u.iter().zip(&dir).map(|(a, b)| a + 1e-3 * b).collect::<Vec<_>>(), pole, t, &theta).0;
-        let em = energy_at(&base, &u.iter().zip(&dir).map(|(a, b)| a - 1e-3 * b).collect::<Vec<_>>(), pole, t, &theta).0;
+        let ep = energy_at(
+            &base,
+            &u.iter()
+                .zip(&dir)
+                .map(|(a, b)| a + 1e-3 * b)
+                .collect::<Vec<_>>(),
+            pole,
+            t,
+            &theta,
+        )
+        .0;
+        let em = energy_at(
+            &base,
+            &u.iter()
+                .zip(&dir)
+                .map(|(a, b)| a - 1e-3 * b)
+                .collect::<Vec<_>>(),
+            pole,
+            t,
+            &theta,
+        )
+        .0;
         assert!(ep + em - 2.0 * e0v > -1e-10);
     }
 

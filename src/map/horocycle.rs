@@ -36,10 +36,16 @@ pub struct Horocycles {
 
 /// Horocyclic distances of every vertex from `pole`, starting from (a copy
 /// of) `input`.
-pub fn horocyclic_distances(input: &Intrinsic, pole: u32, work: &mut FlipWork) -> Result<Horocycles> {
+pub fn horocyclic_distances(
+    input: &Intrinsic,
+    pole: u32,
+    work: &mut FlipWork,
+) -> Result<Horocycles> {
     let n = input.he.n_vertices();
     if pole as usize >= n {
-        return Err(Error::Invalid(format!("pole vertex {pole} is not below the vertex count {n}")));
+        return Err(Error::Invalid(format!(
+            "pole vertex {pole} is not below the vertex count {n}"
+        )));
     }
     let zero = vec![0.0; n];
     let mut x = input.clone();
@@ -47,10 +53,15 @@ pub fn horocyclic_distances(input: &Intrinsic, pole: u32, work: &mut FlipWork) -
     let mut flips = 0u64;
     let mut d = vec![f64::INFINITY; n];
     for round in 1..=12u32 {
-        let s = Scaling { u: &zero, pole, t: -m };
+        let s = Scaling {
+            u: &zero,
+            pole,
+            t: -m,
+        };
         flips += x.flip_to_delaunay(&s, work)?;
         let he = &x.he;
-        let all_touch = (0..he.n_faces() as u32).all(|f| (0..3).any(|k| he.tail[(3 * f + k) as usize] == pole));
+        let all_touch =
+            (0..he.n_faces() as u32).all(|f| (0..3).any(|k| he.tail[(3 * f + k) as usize] == pole));
         d.iter_mut().for_each(|v| *v = f64::INFINITY);
         for h in he.outgoing(pole) {
             let i = he.head(h);
@@ -68,7 +79,9 @@ pub fn horocyclic_distances(input: &Intrinsic, pole: u32, work: &mut FlipWork) -
                 .iter()
                 .enumerate()
                 .filter(|(i, _)| *i as u32 != pole)
-                .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), (_, &v)| (lo.min(v), hi.max(v)));
+                .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), (_, &v)| {
+                    (lo.min(v), hi.max(v))
+                });
             if m > hi - lo + 20.0 {
                 return Ok(Horocycles {
                     d,
@@ -111,7 +124,11 @@ mod tests {
         assert!(h.flips > 0);
         // A larger M gives the same distances (uniformization.md section 4).
         let mut y = x.clone();
-        let s = Scaling { u: &z, pole: 4, t: -(h.m * 2.0) };
+        let s = Scaling {
+            u: &z,
+            pole: 4,
+            t: -(h.m * 2.0),
+        };
         y.flip_to_delaunay(&s, &mut w).unwrap();
         let mut worst: f64 = 0.0;
         let mut d2 = vec![f64::INFINITY; z.len()];
@@ -119,9 +136,9 @@ mod tests {
             let i = y.he.head(hh) as usize;
             d2[i] = d2[i].min(y.lam[y.he.edge[hh as usize] as usize]);
         }
-        for i in 0..z.len() {
+        for (i, (a, b)) in d2.iter().zip(&h.d).enumerate() {
             if i != 4 {
-                worst = worst.max((d2[i] - h.d[i]).abs());
+                worst = worst.max((a - b).abs());
             }
         }
         assert!(worst < 1e-9, "{worst}");

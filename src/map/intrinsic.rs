@@ -25,10 +25,11 @@
 //! - Nothing identifies an edge by its end vertices: loops, multi-edges and
 //!   folded triangles are allowed; an edge with both sides in one face is
 //!   never flipped (it is always Delaunay).
-//! - The Delaunay test `cot`-form `D(e) = (l_jk^2 + l_ki^2 - l_ij^2)/(l_jk l_ki)
-//!   + (l_il^2 + l_lj^2 - l_ij^2)/(l_il l_lj) >= 0` is valid for any positive
-//!   lengths, even ones violating the triangle inequality; after flipping to
-//!   Delaunay every triangle satisfies the triangle inequality.
+//! - The Delaunay test
+//!   `D(e) = (l_jk^2 + l_ki^2 - l_ij^2)/(l_jk l_ki) + (l_il^2 + l_lj^2 - l_ij^2)/(l_il l_lj) >= 0`
+//!   is valid for any positive lengths, even ones violating the triangle
+//!   inequality; after flipping to Delaunay every triangle satisfies the
+//!   triangle inequality.
 //! - Angles use the half-angle formula `tan(a/2) = sqrt(D_B D_C / (P D_A))`
 //!   with the slacks `D_A = B + C - A` formed from `expm1` of log-length
 //!   differences, so needles and caps keep full relative precision
@@ -60,7 +61,11 @@ pub struct Scaling<'a> {
 impl<'a> Scaling<'a> {
     /// Scaling by `u`, no pole.
     pub fn plain(u: &'a [f64]) -> Self {
-        Scaling { u, pole: NO_POLE, t: 0.0 }
+        Scaling {
+            u,
+            pole: NO_POLE,
+            t: 0.0,
+        }
     }
 
     /// Reduced value and pole count of vertex `v`'s factor.
@@ -132,7 +137,7 @@ pub fn triangle_angles(lam: [f64; 3]) -> TriangleAngles {
     let c = xc.exp();
     let a_minus_b = -xb.exp_m1(); // A - B >= 0
     let a_minus_c = -xc.exp_m1(); // A - C >= 0
-    // Slacks D_X = (sum of the other two) - X, without cancellation.
+                                  // Slacks D_X = (sum of the other two) - X, without cancellation.
     let d_a = if b >= c { c - a_minus_b } else { b - a_minus_c };
     let d_b = a_minus_b + c;
     let d_c = a_minus_c + b;
@@ -142,7 +147,7 @@ pub fn triangle_angles(lam: [f64; 3]) -> TriangleAngles {
         cot: [0.0; 3],
         valid: true,
     };
-    if !(d_a > 0.0) {
+    if d_a.is_nan() || d_a <= 0.0 {
         // Degenerate or violated: the limit of a flattened triangle.
         out.valid = d_a == 0.0;
         out.angle[ia] = PI;
@@ -183,7 +188,11 @@ fn two_cos(lam_a: f64, lam_b: f64, lam_c: f64) -> (f64, f64) {
     let b = (0.5 * (lam_b - m)).exp();
     let c = (0.5 * (lam_c - m)).exp();
     // D_A = (X - A) + Y with X the larger of B and C.
-    let (lx, y) = if lam_b >= lam_c { (lam_b, c) } else { (lam_c, b) };
+    let (lx, y) = if lam_b >= lam_c {
+        (lam_b, c)
+    } else {
+        (lam_c, b)
+    };
     let d_a = a * (0.5 * (lx - lam_a)).exp_m1() + y;
     let q = d_a * (a + b + c) / (b * c);
     (q - 2.0, q.abs() + 2.0)
@@ -199,7 +208,7 @@ impl Intrinsic {
             let a = positions[he.tail[h as usize] as usize];
             let b = positions[he.head(h) as usize];
             let d2 = (a[0] - b[0]).powi(2) + (a[1] - b[1]).powi(2) + (a[2] - b[2]).powi(2);
-            if !(d2 > 0.0) || !d2.is_finite() {
+            if d2.is_nan() || d2 <= 0.0 || !d2.is_finite() {
                 return Err(Error::Invalid(format!(
                     "edge ({}, {}) has length {}: expected a positive finite length",
                     he.tail[h as usize],
@@ -218,7 +227,10 @@ impl Intrinsic {
     pub fn reduced(&self, h: u32, s: &Scaling) -> (f64, i32) {
         let (ua, ka) = s.factor(self.he.tail[h as usize]);
         let (ub, kb) = s.factor(self.he.tail[next(h) as usize]);
-        (self.lam[self.he.edge[h as usize] as usize] + ua + ub, ka + kb)
+        (
+            self.lam[self.he.edge[h as usize] as usize] + ua + ub,
+            ka + kb,
+        )
     }
 
     /// Effective log lengths of the triangle of halfedge `h0 = 3f`, sides in
@@ -282,7 +294,10 @@ impl Intrinsic {
             let h0 = self.he.edge_half[e as usize];
             let h1 = self.he.twin[h0 as usize];
             let (a, b) = (self.he.tail[h0 as usize], self.he.tail[h1 as usize]);
-            let (c, d) = (self.he.tail[prev(h0) as usize], self.he.tail[prev(h1) as usize]);
+            let (c, d) = (
+                self.he.tail[prev(h0) as usize],
+                self.he.tail[prev(h1) as usize],
+            );
             if a != s.pole && b != s.pole && ((c == s.pole) != (d == s.pole)) {
                 return v > DELAUNAY_TOL * size;
             }
@@ -501,7 +516,7 @@ mod tests {
         assert!(((t.angle[2] - exact) / exact).abs() < 1e-14);
         // A cap with sides 1, 1, 2 - 1e-12: angle near pi.
         let t = triangle_angles([0.0, 0.0, l(2.0 - 1e-12)]);
-        assert!(t.valid && t.angle[2] > 3.14 && t.angle[2] < PI);
+        assert!(t.valid && t.angle[2] > PI - 1e-5 && t.angle[2] < PI);
         // Violated triangle inequality: limit angles.
         let t = triangle_angles([0.0, 0.0, l(2.5)]);
         assert!(!t.valid && t.angle[2] == PI);
@@ -530,7 +545,9 @@ mod tests {
     fn flips_commute_with_scaling() {
         let base = bumpy(2, 0.4, 11);
         let mut rng = Rng(3);
-        let u: Vec<f64> = (0..base.he.n_vertices()).map(|_| 4.0 * (rng.next_f64() - 0.5)).collect();
+        let u: Vec<f64> = (0..base.he.n_vertices())
+            .map(|_| 4.0 * (rng.next_f64() - 0.5))
+            .collect();
         let scale = |x: &Intrinsic| -> Vec<f64> {
             (0..x.he.n_edges())
                 .map(|e| {
@@ -549,8 +566,8 @@ mod tests {
             assert_eq!(a.flip(e), b.flip(e));
         }
         let sa = scale(&a);
-        for e in 0..sa.len() {
-            worst = worst.max((sa[e] - b.lam[e]).abs());
+        for (x, y) in sa.iter().zip(&b.lam) {
+            worst = worst.max((x - y).abs());
         }
         assert_eq!(a.he, b.he);
         assert!(worst < 1e-12, "{worst}");
@@ -581,7 +598,9 @@ mod tests {
         assert!((total - PI * x.he.n_faces() as f64).abs() < 1e-10);
         // Strong scaling: still valid triangles after flipping.
         let mut rng = Rng(9);
-        let u: Vec<f64> = (0..x.he.n_vertices()).map(|_| 12.0 * (rng.next_f64() - 0.5)).collect();
+        let u: Vec<f64> = (0..x.he.n_vertices())
+            .map(|_| 12.0 * (rng.next_f64() - 0.5))
+            .collect();
         let s = Scaling::plain(&u);
         x.flip_to_delaunay(&s, &mut w).unwrap();
         x.he.check().unwrap();

@@ -24,8 +24,8 @@
 
 use super::intrinsic::{triangle_angles, Intrinsic, Scaling};
 use super::sparse::SparseSpd;
-use faer::c64;
 use crate::error::{Error, Result};
+use faer::c64;
 
 /// The planar layout.
 #[derive(Debug, Clone)]
@@ -67,7 +67,8 @@ pub fn layout_disk(tri: &Intrinsic, s: &Scaling) -> Result<Layout> {
             }
         }
     }
-    let missing = (0..n as u32).find(|&v| v != pole && v != pa && v != pb && idx[v as usize] == u32::MAX);
+    let missing =
+        (0..n as u32).find(|&v| v != pole && v != pa && v != pb && idx[v as usize] == u32::MAX);
     if let Some(v) = missing {
         return Err(Error::Algorithm {
             stage: "map: layout",
@@ -80,12 +81,20 @@ pub fn layout_disk(tri: &Intrinsic, s: &Scaling) -> Result<Layout> {
         .map(|&f| {
             let lams = tri.face_lams(f, s);
             let t = triangle_angles(lams);
-            let (a, b, c) = (he.tail[(3 * f) as usize], he.tail[(3 * f + 1) as usize], he.tail[(3 * f + 2) as usize]);
+            let (a, b, c) = (
+                he.tail[(3 * f) as usize],
+                he.tail[(3 * f + 1) as usize],
+                he.tail[(3 * f + 2) as usize],
+            );
             let inv_ab = (-(lams[0] - lref) / 2.0).exp();
             let inv_ca = (-(lams[2] - lref) / 2.0).exp();
             let (sn, cs) = t.angle[1].sin_cos();
             let rot = c64::new(cs * inv_ab, sn * inv_ab); // e^{i alpha_a} / l_ab
-            [(a, rot - c64::new(inv_ca, 0.0)), (b, -rot), (c, c64::new(inv_ca, 0.0))]
+            [
+                (a, rot - c64::new(inv_ca, 0.0)),
+                (b, -rot),
+                (c, c64::new(inv_ca, 0.0)),
+            ]
         })
         .collect();
     // Hermitian normal equations A^H A z = -A^H A_pinned z_pinned (lower
@@ -120,7 +129,11 @@ pub fn layout_disk(tri: &Intrinsic, s: &Scaling) -> Result<Layout> {
         for (v, zv) in z.iter_mut().enumerate() {
             let i = idx[v];
             if i != u32::MAX {
-                *zv = if add { *zv + x[i as usize] } else { x[i as usize] };
+                *zv = if add {
+                    *zv + x[i as usize]
+                } else {
+                    x[i as usize]
+                };
             }
         }
     };
@@ -159,7 +172,7 @@ pub fn layout_disk(tri: &Intrinsic, s: &Scaling) -> Result<Layout> {
         scatter(&mut trial, &atr, true);
         let mut atr2 = vec![c64::new(0.0, 0.0); m as usize];
         let r2 = residuals(&trial, &mut atr2);
-        if !(r2 < residual) {
+        if r2.is_nan() || r2 >= residual {
             break;
         }
         z = trial;
@@ -191,12 +204,21 @@ pub fn layout_disk(tri: &Intrinsic, s: &Scaling) -> Result<Layout> {
         });
     }
     for (v, zv) in z.iter_mut().enumerate() {
-        *zv = if v as u32 == pole { [0.0, 0.0] } else { [(zv[0] - c[0]) * scale, (zv[1] - c[1]) * scale] };
+        *zv = if v as u32 == pole {
+            [0.0, 0.0]
+        } else {
+            [(zv[0] - c[0]) * scale, (zv[1] - c[1]) * scale]
+        };
     }
     // Rotation: the lowest-numbered vertex off the centre goes on the
     // positive x axis, so the output does not depend on which triangle was
     // pinned.
-    if let Some(zr) = z.iter().enumerate().find(|(v, zv)| *v as u32 != pole && zv[0].hypot(zv[1]) > 1e-3).map(|(_, zv)| *zv) {
+    if let Some(zr) = z
+        .iter()
+        .enumerate()
+        .find(|(v, zv)| *v as u32 != pole && zv[0].hypot(zv[1]) > 1e-3)
+        .map(|(_, zv)| *zv)
+    {
         let r = zr[0].hypot(zr[1]);
         let (cs, sn) = (zr[0] / r, -zr[1] / r);
         for (v, zv) in z.iter_mut().enumerate() {
@@ -228,6 +250,12 @@ pub fn to_sphere(z: [f64; 2]) -> [f64; 3] {
 pub fn project(z: &[[f64; 2]], pole: u32) -> Vec<[f64; 3]> {
     z.iter()
         .enumerate()
-        .map(|(v, &zv)| if v as u32 == pole { [0.0, 0.0, 1.0] } else { to_sphere(zv) })
+        .map(|(v, &zv)| {
+            if v as u32 == pole {
+                [0.0, 0.0, 1.0]
+            } else {
+                to_sphere(zv)
+            }
+        })
         .collect()
 }

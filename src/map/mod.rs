@@ -219,9 +219,12 @@ pub fn check_input(mesh: &TriMesh) -> Result<Intrinsic> {
     mesh.validate().map_err(|e| not_ready(e.to_string()))?;
     let (_, n_comp) = face_components(mesh);
     if n_comp != 1 {
-        return Err(not_ready(format!("the surface has {n_comp} connected components")));
+        return Err(not_ready(format!(
+            "the surface has {n_comp} connected components"
+        )));
     }
-    let he = Halfedges::from_faces(mesh.n_vertices(), &mesh.faces).map_err(|e| not_ready(strip(e)))?;
+    let he =
+        Halfedges::from_faces(mesh.n_vertices(), &mesh.faces).map_err(|e| not_ready(strip(e)))?;
     let chi = he.euler_characteristic();
     if chi != 2 {
         let genus = (2 - chi) / 2;
@@ -245,14 +248,18 @@ pub fn choose_pole(mesh: &TriMesh, he: &Halfedges, choice: &PoleChoice) -> Resul
     let candidates: Vec<u32> = match choice {
         PoleChoice::Vertex(v) => {
             if *v >= n {
-                return Err(Error::Invalid(format!("pole vertex {v} is not below the vertex count {n}")));
+                return Err(Error::Invalid(format!(
+                    "pole vertex {v} is not below the vertex count {n}"
+                )));
             }
             return Ok((*v, "given".into()));
         }
         PoleChoice::Auto => (0..n).collect(),
         PoleChoice::Among(list) => {
             if let Some(v) = list.iter().find(|&&v| v >= n) {
-                return Err(Error::Invalid(format!("pole candidate {v} is not below the vertex count {n}")));
+                return Err(Error::Invalid(format!(
+                    "pole candidate {v} is not below the vertex count {n}"
+                )));
             }
             list.clone()
         }
@@ -264,7 +271,11 @@ pub fn choose_pole(mesh: &TriMesh, he: &Halfedges, choice: &PoleChoice) -> Resul
     let deg_of: Vec<usize> = degrees.clone();
     degrees.sort_unstable();
     let median = degrees[degrees.len() / 2];
-    let best_dev = deg_of.iter().map(|&d| d.abs_diff(median)).min().unwrap_or(0);
+    let best_dev = deg_of
+        .iter()
+        .map(|&d| d.abs_diff(median))
+        .min()
+        .unwrap_or(0);
     // Smallest angle of the input triangles around each vertex.
     let mut min_angle = vec![f64::INFINITY; n as usize];
     for t in &mesh.faces {
@@ -314,7 +325,10 @@ pub fn map_to_sphere(mesh: &TriMesh, opts: &MapOptions) -> Result<SphereMap> {
 }
 
 /// [`map_to_sphere`], keeping the partial report of a failure.
-pub fn map_to_sphere_diagnosed(mesh: &TriMesh, opts: &MapOptions) -> std::result::Result<SphereMap, Box<MapFailure>> {
+pub fn map_to_sphere_diagnosed(
+    mesh: &TriMesh,
+    opts: &MapOptions,
+) -> std::result::Result<SphereMap, Box<MapFailure>> {
     let mut report = MapReport {
         status: "failed".into(),
         vertices: mesh.n_vertices(),
@@ -339,11 +353,24 @@ pub fn map_to_sphere_diagnosed(mesh: &TriMesh, opts: &MapOptions) -> std::result
 }
 
 type Mapped = (Vec<[f64; 3]>, u32, Vec<[u32; 3]>);
-type Solved = (solver::Solution, layout::Layout, Vec<[f64; 3]>, Verification);
+type Solved = (
+    solver::Solution,
+    layout::Layout,
+    Vec<[f64; 3]>,
+    Verification,
+);
 
-fn lay_out(sol: &solver::Solution, d: &[f64], pole: u32) -> Result<(layout::Layout, Vec<[f64; 3]>)> {
+fn lay_out(
+    sol: &solver::Solution,
+    d: &[f64],
+    pole: u32,
+) -> Result<(layout::Layout, Vec<[f64; 3]>)> {
     let u: Vec<f64> = sol.s.iter().zip(d).map(|(s, d)| s - d).collect();
-    let sc = Scaling { u: &u, pole, t: sol.t };
+    let sc = Scaling {
+        u: &u,
+        pole,
+        t: sol.t,
+    };
     let lay = layout::layout_disk(&sol.tri, &sc)?;
     let points = layout::project(&lay.z, pole);
     Ok((lay, points))
@@ -358,8 +385,20 @@ fn verify_solution(
     opts: &MapOptions,
 ) -> Result<Verification> {
     let u: Vec<f64> = sol.s.iter().zip(d).map(|(s, d)| s - d).collect();
-    let sc = Scaling { u: &u, pole, t: sol.t };
-    verify::verify(&sol.tri, &sc, &sol.eval.angle, &sol.eval.sums, &lay.z, points, &opts.verify)
+    let sc = Scaling {
+        u: &u,
+        pole,
+        t: sol.t,
+    };
+    verify::verify(
+        &sol.tri,
+        &sc,
+        &sol.eval.angle,
+        &sol.eval.sums,
+        &lay.z,
+        points,
+        &opts.verify,
+    )
 }
 
 /// The fast path with a certificate: guess that the disk boundary is the
@@ -402,10 +441,17 @@ fn fast_path(
     let t = Instant::now();
     let ver = verify_solution(&sol, &d, pole, &lay, &points, opts).map_err(|e| {
         let held = fixed.iter().filter(|&&f| f).count();
-        let joined = sol.tri.he.outgoing(pole).filter(|&h| fixed[sol.tri.he.head(h) as usize]).count();
+        let joined = sol
+            .tri
+            .he
+            .outgoing(pole)
+            .filter(|&h| fixed[sol.tri.he.head(h) as usize])
+            .count();
         Error::Algorithm {
             stage: "map: fast path",
-            message: format!("{e} [{held} vertices held on the boundary, {joined} still joined to the pole]"),
+            message: format!(
+                "{e} [{held} vertices held on the boundary, {joined} still joined to the pole]"
+            ),
         }
     })?;
     times.verify = t.elapsed().as_secs_f64();
@@ -451,7 +497,13 @@ fn run(mesh: &TriMesh, opts: &MapOptions, report: &mut MapReport) -> Result<Mapp
             report.times.horocycles = t.elapsed().as_secs_f64();
 
             let t = Instant::now();
-            let solved = solver::solve(&input, pole, &horo.d, &opts.solver, &mut report.iteration_log);
+            let solved = solver::solve(
+                &input,
+                pole,
+                &horo.d,
+                &opts.solver,
+                &mut report.iteration_log,
+            );
             report.times.solve = t.elapsed().as_secs_f64();
             let sol = solved?;
             let t = Instant::now();
@@ -481,7 +533,9 @@ fn run(mesh: &TriMesh, opts: &MapOptions, report: &mut MapReport) -> Result<Mapp
     report.times.total = t0.elapsed().as_secs_f64();
 
     let he = &sol.tri.he;
-    let hull_faces: Vec<[u32; 3]> = (0..he.n_faces()).map(|f| [he.tail[3 * f], he.tail[3 * f + 1], he.tail[3 * f + 2]]).collect();
+    let hull_faces: Vec<[u32; 3]> = (0..he.n_faces())
+        .map(|f| [he.tail[3 * f], he.tail[3 * f + 1], he.tail[3 * f + 2]])
+        .collect();
     Ok((points, pole, hull_faces))
 }
 
@@ -501,7 +555,11 @@ pub fn face_metrics(mesh: &TriMesh, points: &[[f64; 3]]) -> (Percentiles, Percen
         let nin = cross(e1, e2);
         let nout = cross(f1, f2);
         // Orientation on the sphere: the image normal against the position.
-        let centre = [q[0][0] + q[1][0] + q[2][0], q[0][1] + q[1][1] + q[2][1], q[0][2] + q[1][2] + q[2][2]];
+        let centre = [
+            q[0][0] + q[1][0] + q[2][0],
+            q[0][1] + q[1][1] + q[2][1],
+            q[0][2] + q[1][2] + q[2][2],
+        ];
         if dot(nout, centre) <= 0.0 {
             inverted += 1;
         }
@@ -520,10 +578,19 @@ pub fn face_metrics(mesh: &TriMesh, points: &[[f64; 3]]) -> (Percentiles, Percen
         let pm = frame(e1, e2);
         let qm = frame(f1, f2);
         let det_p = pm[0][0] * pm[1][1] - pm[0][1] * pm[1][0];
-        let inv = [[pm[1][1] / det_p, -pm[0][1] / det_p], [-pm[1][0] / det_p, pm[0][0] / det_p]];
+        let inv = [
+            [pm[1][1] / det_p, -pm[0][1] / det_p],
+            [-pm[1][0] / det_p, pm[0][0] / det_p],
+        ];
         let j = [
-            [qm[0][0] * inv[0][0] + qm[0][1] * inv[1][0], qm[0][0] * inv[0][1] + qm[0][1] * inv[1][1]],
-            [qm[1][0] * inv[0][0] + qm[1][1] * inv[1][0], qm[1][0] * inv[0][1] + qm[1][1] * inv[1][1]],
+            [
+                qm[0][0] * inv[0][0] + qm[0][1] * inv[1][0],
+                qm[0][0] * inv[0][1] + qm[0][1] * inv[1][1],
+            ],
+            [
+                qm[1][0] * inv[0][0] + qm[1][1] * inv[1][0],
+                qm[1][0] * inv[0][1] + qm[1][1] * inv[1][1],
+            ],
         ];
         let fro = j[0][0].powi(2) + j[0][1].powi(2) + j[1][0].powi(2) + j[1][1].powi(2);
         let det = (j[0][0] * j[1][1] - j[0][1] * j[1][0]).abs();
@@ -534,6 +601,14 @@ pub fn face_metrics(mesh: &TriMesh, points: &[[f64; 3]]) -> (Percentiles, Percen
     }
     let tin: f64 = area_in.iter().sum();
     let tout: f64 = area_out.iter().sum();
-    let mut lar: Vec<f64> = area_in.iter().zip(&area_out).map(|(a, b)| ((b / tout) / (a / tin)).ln()).collect();
-    (Percentiles::of(&mut ratio), Percentiles::of(&mut lar), inverted)
+    let mut lar: Vec<f64> = area_in
+        .iter()
+        .zip(&area_out)
+        .map(|(a, b)| ((b / tout) / (a / tin)).ln())
+        .collect();
+    (
+        Percentiles::of(&mut ratio),
+        Percentiles::of(&mut lar),
+        inverted,
+    )
 }

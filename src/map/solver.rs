@@ -180,7 +180,13 @@ fn evaluate_at(
 
 /// Solve the bounds-constrained problem from the start in `opts`.
 /// The iteration log is appended to `log` whether or not the solve succeeds.
-pub fn solve(input: &Intrinsic, pole: u32, d: &[f64], opts: &SolverOptions, log: &mut Vec<IterationRecord>) -> Result<Solution> {
+pub fn solve(
+    input: &Intrinsic,
+    pole: u32,
+    d: &[f64],
+    opts: &SolverOptions,
+    log: &mut Vec<IterationRecord>,
+) -> Result<Solution> {
     let n = input.he.n_vertices();
     let s0 = match opts.start {
         Start::InputMetric => d.to_vec(),
@@ -214,7 +220,9 @@ pub fn solve_fixed_boundary(
     opts: &SolverOptions,
     log: &mut Vec<IterationRecord>,
 ) -> Result<Solution> {
-    let s0: Vec<f64> = (0..d.len()).map(|v| if fixed[v] { 0.0 } else { d[v] }).collect();
+    let s0: Vec<f64> = (0..d.len())
+        .map(|v| if fixed[v] { 0.0 } else { d[v] })
+        .collect();
     solve_general(input, pole, d, s0, Some(fixed), opts, log)
 }
 
@@ -229,15 +237,22 @@ fn solve_general(
 ) -> Result<Solution> {
     let n = input.he.n_vertices();
     if fixed.is_some_and(|f| f.len() != n) {
-        return Err(Error::Invalid("fixed-boundary mask of the wrong length".into()));
+        return Err(Error::Invalid(
+            "fixed-boundary mask of the wrong length".into(),
+        ));
     }
     let is_fixed = |v: usize| fixed.is_some_and(|f| f[v]);
     let bounded = fixed.is_none();
     let mut theta = vec![2.0 * PI; n];
     theta[pole as usize] = 0.0;
-    let mut s: Vec<f64> = s0.iter().map(|x| if bounded { x.max(0.0) } else { *x }).collect();
+    let mut s: Vec<f64> = s0
+        .iter()
+        .map(|x| if bounded { x.max(0.0) } else { *x })
+        .collect();
     s[pole as usize] = 0.0;
-    let var: Vec<u32> = (0..n as u32).map(|v| if v == pole { FIXED } else { v }).collect();
+    let var: Vec<u32> = (0..n as u32)
+        .map(|v| if v == pole { FIXED } else { v })
+        .collect();
     let mut tri = input.clone();
     let mut work = FlipWork::default();
     let mut u = vec![0.0; n];
@@ -258,7 +273,9 @@ fn solve_general(
     for &t_stage in &opts.t_stages {
         t = t_stage;
         let te = std::time::Instant::now();
-        flips += evaluate_at(&mut tri, &s, d, pole, t, snap, &mut u, &theta, &mut work, &mut ev)?;
+        flips += evaluate_at(
+            &mut tri, &s, d, pole, t, snap, &mut u, &theta, &mut work, &mut ev,
+        )?;
         time_eval += te.elapsed().as_secs_f64();
         let mut converged = false;
         for iter in 0..opts.max_iter_per_stage {
@@ -326,7 +343,15 @@ fn solve_general(
                 let mut shift = 0.0;
                 let mut solved = false;
                 for _attempt in 0..6 {
-                    hessian_entries(&tri, &ev.cot, &fvar, opts.weight_clip, shift, pole, &mut entries);
+                    hessian_entries(
+                        &tri,
+                        &ev.cot,
+                        &fvar,
+                        opts.weight_clip,
+                        shift,
+                        pole,
+                        &mut entries,
+                    );
                     if spd.factorize(nf as usize, &mut entries).is_ok() {
                         solved = true;
                         break;
@@ -336,7 +361,9 @@ fn solve_general(
                 if !solved {
                     return Err(Error::Algorithm {
                         stage: "map: projected Newton",
-                        message: format!("Newton matrix not positive definite at T = {t}, iteration {iter}"),
+                        message: format!(
+                            "Newton matrix not positive definite at T = {t}, iteration {iter}"
+                        ),
                     });
                 }
                 spd.solve(&mut rhs)?;
@@ -368,10 +395,22 @@ fn solve_general(
                     };
                 }
                 let te = std::time::Instant::now();
-                ls_flips += evaluate_at(&mut tri, &s_trial, d, pole, t, snap, &mut u, &theta, &mut work, &mut ev_trial)?;
+                ls_flips += evaluate_at(
+                    &mut tri,
+                    &s_trial,
+                    d,
+                    pole,
+                    t,
+                    snap,
+                    &mut u,
+                    &theta,
+                    &mut work,
+                    &mut ev_trial,
+                )?;
                 time_eval += te.elapsed().as_secs_f64();
                 let decrease: f64 = (0..n).map(|v| g[v] * (s_trial[v] - s[v])).sum();
-                if ev_trial.energy.is_finite() && ev_trial.energy <= e0 + 1e-4 * decrease + roundoff {
+                if ev_trial.energy.is_finite() && ev_trial.energy <= e0 + 1e-4 * decrease + roundoff
+                {
                     accepted = true;
                     break;
                 }
@@ -395,7 +434,10 @@ fn solve_general(
             std::mem::swap(&mut ev, &mut ev_trial);
         }
         if !converged {
-            let last = log.last().map(|r| r.max_projected_gradient).unwrap_or(f64::NAN);
+            let last = log
+                .last()
+                .map(|r| r.max_projected_gradient)
+                .unwrap_or(f64::NAN);
             return Err(Error::Algorithm {
                 stage: "map: projected Newton",
                 message: format!(

@@ -13,12 +13,12 @@
 use crate::error::{Error, Result};
 use faer::dyn_stack::{MemBuffer, MemStack};
 use faer::linalg::cholesky::llt::factor::LltRegularization;
+use faer::perm::PermRef;
 use faer::sparse::linalg::cholesky::{
     factorize_symbolic_cholesky, LltRef, SymbolicCholesky, SymmetricOrdering,
 };
 use faer::sparse::{SparseColMatRef, SymbolicSparseColMatRef};
 use faer::traits::ComplexField;
-use faer::perm::PermRef;
 use faer::{c64, Conj, MatMut, Par, Side};
 use std::ops::AddAssign;
 
@@ -98,7 +98,11 @@ impl<T: Scalar> SparseSpd<T> {
                 message: format!("entry ({r}, {c}) above the diagonal"),
             });
         }
-        self.scratch.extend(entries.iter().map(|&(r, c, v)| (((c as u64) << 32) | r as u64, v)));
+        self.scratch.extend(
+            entries
+                .iter()
+                .map(|&(r, c, v)| (((c as u64) << 32) | r as u64, v)),
+        );
         self.scratch.sort_unstable_by_key(|x| x.0);
         let mut col_ptr = Vec::with_capacity(n + 1);
         let mut row_idx = Vec::with_capacity(self.scratch.len());
@@ -138,7 +142,8 @@ impl<T: Scalar> SparseSpd<T> {
         self.col_ptr = col_ptr;
         self.row_idx = row_idx;
         self.values = values;
-        let pattern = SymbolicSparseColMatRef::new_checked(n, n, &self.col_ptr, None, &self.row_idx);
+        let pattern =
+            SymbolicSparseColMatRef::new_checked(n, n, &self.col_ptr, None, &self.row_idx);
         self.time_assemble += t0.elapsed().as_secs_f64();
         let t0 = std::time::Instant::now();
         if !same {
@@ -147,12 +152,12 @@ impl<T: Scalar> SparseSpd<T> {
                 Some((fwd, inv)) => SymmetricOrdering::Custom(PermRef::new_checked(fwd, inv, n)),
                 None => SymmetricOrdering::Amd,
             };
-            let sym = factorize_symbolic_cholesky(pattern, Side::Lower, ordering, Default::default()).map_err(|e| {
-                Error::Algorithm {
-                    stage: "map: sparse Cholesky (symbolic)",
-                    message: format!("{e:?}"),
-                }
-            })?;
+            let sym =
+                factorize_symbolic_cholesky(pattern, Side::Lower, ordering, Default::default())
+                    .map_err(|e| Error::Algorithm {
+                        stage: "map: sparse Cholesky (symbolic)",
+                        message: format!("{e:?}"),
+                    })?;
             if reuse.is_none() {
                 self.ordering = sym.perm().map(|p| {
                     let (f, i) = p.arrays();
@@ -215,7 +220,11 @@ impl<T: Scalar> SparseSpd<T> {
         if b.len() != sym.nrows() {
             return Err(Error::Algorithm {
                 stage: "map: sparse solve",
-                message: format!("right-hand side of length {} for {} unknowns", b.len(), sym.nrows()),
+                message: format!(
+                    "right-hand side of length {} for {} unknowns",
+                    b.len(),
+                    sym.nrows()
+                ),
             });
         }
         let par = Par::Seq;
@@ -230,7 +239,6 @@ impl<T: Scalar> SparseSpd<T> {
         llt.solve_in_place_with_conj(Conj::No, rhs, par, MemStack::new(&mut mem));
         Ok(())
     }
-
 }
 
 impl SparseSpd<f64> {

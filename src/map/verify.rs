@@ -100,8 +100,13 @@ fn incircle(a: [f64; 2], b: [f64; 2], c: [f64; 2], d: [f64; 2]) -> (f64, f64) {
     let (adx, ady) = (a[0] - d[0], a[1] - d[1]);
     let (bdx, bdy) = (b[0] - d[0], b[1] - d[1]);
     let (cdx, cdy) = (c[0] - d[0], c[1] - d[1]);
-    let (al, bl, cl) = (adx * adx + ady * ady, bdx * bdx + bdy * bdy, cdx * cdx + cdy * cdy);
-    let v = al * (bdx * cdy - bdy * cdx) + bl * (cdx * ady - cdy * adx) + cl * (adx * bdy - ady * bdx);
+    let (al, bl, cl) = (
+        adx * adx + ady * ady,
+        bdx * bdx + bdy * bdy,
+        cdx * cdx + cdy * cdy,
+    );
+    let v =
+        al * (bdx * cdy - bdy * cdx) + bl * (cdx * ady - cdy * adx) + cl * (adx * bdy - ady * bdx);
     let size = al * (bl * cl).sqrt() + bl * (cl * al).sqrt() + cl * (al * bl).sqrt();
     (v, size)
 }
@@ -130,7 +135,10 @@ pub fn verify(
         out.max_radius_error = out.max_radius_error.max((r - 1.0).abs());
     }
     if out.max_radius_error > tol.on_sphere {
-        return Err(fail(format!("a point is off the sphere by {:.3e}", out.max_radius_error)));
+        return Err(fail(format!(
+            "a point is off the sphere by {:.3e}",
+            out.max_radius_error
+        )));
     }
     if points.get(pole as usize) != Some(&[0.0, 0.0, 1.0]) {
         return Err(fail("the pole is not at the north pole".into()));
@@ -140,7 +148,10 @@ pub fn verify(
     for h in 0..he.n_halfedges() as u32 {
         let (a, b) = (he.tail[h as usize], he.head(h));
         if face(h) == face(he.twin[h as usize]) {
-            return Err(fail(format!("edge {} is folded into one triangle", he.edge[h as usize])));
+            return Err(fail(format!(
+                "edge {} is folded into one triangle",
+                he.edge[h as usize]
+            )));
         }
         if a == b {
             return Err(fail(format!("a loop edge remains at vertex {a}")));
@@ -178,7 +189,11 @@ pub fn verify(
             }
         }
     }
-    out.max_boundary_angle_excess = if max_excess.is_finite() { max_excess } else { 0.0 };
+    out.max_boundary_angle_excess = if max_excess.is_finite() {
+        max_excess
+    } else {
+        0.0
+    };
     if out.max_interior_angle_error > tol.interior_angle {
         return Err(fail(format!(
             "interior angle sums are off by up to {:.3e} rad (vertex {worst_interior}, angle sum {:.6})",
@@ -195,13 +210,19 @@ pub fn verify(
     out.max_incircle = f64::NEG_INFINITY;
     out.max_boundary_turn = f64::NEG_INFINITY;
     for f in 0..he.n_faces() as u32 {
-        let vs = [he.tail[(3 * f) as usize], he.tail[(3 * f + 1) as usize], he.tail[(3 * f + 2) as usize]];
+        let vs = [
+            he.tail[(3 * f) as usize],
+            he.tail[(3 * f + 1) as usize],
+            he.tail[(3 * f + 2) as usize],
+        ];
         if vs.contains(&pole) {
             continue;
         }
         let (o, _) = orient2d(z[vs[0] as usize], z[vs[1] as usize], z[vs[2] as usize]);
-        if !(o > 0.0) {
-            return Err(fail(format!("disk face {f} is not counter-clockwise in the plane")));
+        if o.is_nan() || o <= 0.0 {
+            return Err(fail(format!(
+                "disk face {f} is not counter-clockwise in the plane"
+            )));
         }
     }
     let mut max_cr: f64 = 0.0;
@@ -229,7 +250,9 @@ pub fn verify(
             out.max_boundary_turn = out.max_boundary_turn.max(rel);
         }
         if n_pole > 1 {
-            return Err(fail(format!("edge {e}: the pole appears twice in its quad")));
+            return Err(fail(format!(
+                "edge {e}: the pole appears twice in its quad"
+            )));
         }
         // Cross-ratio l_il l_jk / (l_lj l_ki).
         let lam = |hh: u32| tri.lam[he.edge[hh as usize] as usize];
@@ -277,11 +300,15 @@ pub fn verify(
     let mut vol = 0.0;
     for f in 0..he.n_faces() {
         let [a, b, c] = [0, 1, 2].map(|k| points[he.tail[3 * f + k] as usize]);
-        vol += (a[0] * (b[1] * c[2] - b[2] * c[1]) - a[1] * (b[0] * c[2] - b[2] * c[0]) + a[2] * (b[0] * c[1] - b[1] * c[0])) / 6.0;
+        vol += (a[0] * (b[1] * c[2] - b[2] * c[1]) - a[1] * (b[0] * c[2] - b[2] * c[0])
+            + a[2] * (b[0] * c[1] - b[1] * c[0]))
+            / 6.0;
     }
     out.hull_volume = vol;
-    if !(vol > 0.0) {
-        return Err(fail(format!("the hull has non-positive volume {vol:.3e}: orientation reversed")));
+    if vol.is_nan() || vol <= 0.0 {
+        return Err(fail(format!(
+            "the hull has non-positive volume {vol:.3e}: orientation reversed"
+        )));
     }
     Ok(out)
 }
