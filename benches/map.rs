@@ -58,6 +58,59 @@ fn peak_rss_mb() -> f64 {
         .unwrap_or(f64::NAN)
 }
 
+/// The linear harmonic map of Angenent et al. (1999) in Python/scipy
+/// (benches/harmonic_map.py), on the same mesh and pole, for comparison.
+/// Python: `HOROSPHERE_PYTHON` or /work/venv/bin/python, else `python3`.
+fn harmonic_comparison(mesh: &TriMesh, pole: u32, name: &str) -> serde_json::Value {
+    let dir = std::env::temp_dir().join(format!("horosphere-bench-{}", std::process::id()));
+    let path = dir.join(format!("folded-{name}.off"));
+    if std::fs::create_dir_all(&dir).is_err() || horosphere::io::write_mesh(&path, mesh).is_err() {
+        return serde_json::Value::Null;
+    }
+    let python = std::env::var("HOROSPHERE_PYTHON").unwrap_or_else(|_| {
+        if std::path::Path::new("/work/venv/bin/python").exists() {
+            "/work/venv/bin/python".into()
+        } else {
+            "python3".into()
+        }
+    });
+    let script = concat!(env!("CARGO_MANIFEST_DIR"), "/benches/harmonic_map.py");
+    let out = std::process::Command::new(python)
+        .arg(script)
+        .arg(&path)
+        .arg(pole.to_string())
+        .output();
+    let _ = std::fs::remove_file(&path);
+    match out {
+        Ok(o) if o.status.success() => {
+            let v: serde_json::Value =
+                serde_json::from_slice(&o.stdout).unwrap_or(serde_json::Value::Null);
+            println!(
+                "      harmonic map (Python/scipy, Angenent et al. 1999): {:.2} s, angle distortion p50/p95 {:.3}/{:.3}, inverted faces {}",
+                v["seconds"].as_f64().unwrap_or(f64::NAN),
+                v["angle_distortion_p50"].as_f64().unwrap_or(f64::NAN),
+                v["angle_distortion_p95"].as_f64().unwrap_or(f64::NAN),
+                v["inverted_faces"]
+            );
+            v
+        }
+        Ok(o) => {
+            println!(
+                "      harmonic map comparison failed: {}",
+                String::from_utf8_lossy(&o.stderr)
+                    .lines()
+                    .last()
+                    .unwrap_or("")
+            );
+            serde_json::Value::Null
+        }
+        Err(e) => {
+            println!("      harmonic map comparison skipped: {e}");
+            serde_json::Value::Null
+        }
+    }
+}
+
 fn main() {
     let args: Vec<String> = std::env::args()
         .skip(1)
@@ -126,7 +179,12 @@ fn main() {
                 );
             }
         }
+        let harmonic = harmonic_comparison(&mesh, out.pole, name);
         results.push(serde_json::json!({
+            "harmonic_python": harmonic,
+            "angle_distortion_p50": r.angle_distortion.p50,
+            "angle_distortion_p95": r.angle_distortion.p95,
+            "inverted_faces": r.inverted_faces,
             "size": name,
             "vertices": r.vertices,
             "wall_s": wall,
