@@ -135,13 +135,14 @@ fn main() {
         let r = &out.report;
         let tm = &r.times;
         println!(
-            "map {name:>5} ({} vertices, {} path): wall {wall:.2} s [checks {:.2}, delaunay {:.2}, distances {:.2}, solve {:.2} (evaluate {:.2}, assemble {:.2}, symbolic {:.2}, numeric {:.2}, solve {:.2}), layout {:.2}, verify {:.2}, metrics {:.2}], iterations {}, factorisations {} (symbolic {}), flips {}/{}/{}, boundary {}, peak RSS {:.0} MB",
+            "map {name:>5} ({} vertices, {} path): wall {wall:.2} s [checks {:.2}, delaunay {:.2}, distances {:.2}, solve {:.2} ({} evaluations {:.2}, assemble {:.2}, symbolic {:.2}, numeric {:.2}, solve {:.2}), layout {:.2}, verify {:.2}, metrics {:.2}], iterations {}, factorisations {} (symbolic {}), flips {}/{}/{}, boundary {}, peak RSS {:.0} MB",
             r.vertices,
             r.path,
             tm.checks,
             tm.delaunay,
             tm.horocycles,
             tm.solve,
+            r.solve_profile.evaluations,
             r.solve_profile.evaluate,
             r.solve_profile.assemble,
             r.solve_profile.symbolic,

@@ -122,6 +122,8 @@ pub struct Solution {
 /// Seconds per part of the solve.
 #[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
 pub struct SolveProfile {
+    /// Number of evaluations (flip to Delaunay, angles, energy).
+    pub evaluations: usize,
     /// Flipping to Delaunay, angles and energy (all evaluations).
     pub evaluate: f64,
     /// Assembling the Newton matrices.
@@ -269,14 +271,19 @@ fn solve_general(
     let mut rhs = Vec::new();
     let snap = if bounded { opts.snap } else { -1.0 };
     let mut time_eval = 0.0;
+    let mut n_eval = 0usize;
     let mut t = opts.t_stages.first().copied().unwrap_or(80.0);
-    for &t_stage in &opts.t_stages {
-        t = t_stage;
+    let n_stages = opts.t_stages.len();
+    let mut stage = 0;
+    while stage < n_stages {
+        t = opts.t_stages[stage];
+        stage += 1;
         let te = std::time::Instant::now();
         flips += evaluate_at(
             &mut tri, &s, d, pole, t, snap, &mut u, &theta, &mut work, &mut ev,
         )?;
         time_eval += te.elapsed().as_secs_f64();
+        n_eval += 1;
         let mut converged = false;
         for iter in 0..opts.max_iter_per_stage {
             gradient(&theta, &ev.sums, &var, &mut g);
@@ -408,6 +415,7 @@ fn solve_general(
                     &mut ev_trial,
                 )?;
                 time_eval += te.elapsed().as_secs_f64();
+                n_eval += 1;
                 let decrease: f64 = (0..n).map(|v| g[v] * (s_trial[v] - s[v])).sum();
                 if ev_trial.energy.is_finite() && ev_trial.energy <= e0 + 1e-4 * decrease + roundoff
                 {
@@ -446,6 +454,15 @@ fn solve_general(
                 ),
             });
         }
+        // With the boundary held (no bounds), T only enters through free
+        // vertices joined to the pole; without any, the solution does not
+        // depend on T and the intermediate stages are skipped.
+        if !bounded && stage < n_stages.saturating_sub(1) {
+            let touches = tri.he.outgoing(pole).any(|h| !is_fixed(tri.he.head(h) as usize));
+            if !touches {
+                stage = n_stages - 1;
+            }
+        }
     }
     Ok(Solution {
         s,
@@ -457,6 +474,7 @@ fn solve_general(
         factorizations: spd.n_numeric,
         symbolic_analyses: spd.n_symbolic,
         profile: SolveProfile {
+            evaluations: n_eval,
             evaluate: time_eval,
             assemble: spd.time_assemble,
             symbolic: spd.time_symbolic,
