@@ -12,6 +12,7 @@
 pub mod error;
 pub mod inspect;
 pub mod io;
+pub mod map;
 pub mod mesh;
 pub mod repair;
 pub mod synth;

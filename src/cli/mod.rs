@@ -9,6 +9,7 @@ use std::process::ExitCode;
 mod convert;
 mod demo;
 mod inspect;
+mod map;
 mod repair;
 
 /// Cortical surfaces of a cohort to one common sphere. Research use only:
@@ -31,6 +32,8 @@ enum Command {
     /// Repair a surface: merge duplicate vertices, drop degenerate faces and
     /// stray pieces, orient it consistently and outward, fill its holes.
     Repair(repair::RepairArgs),
+    /// Map a closed genus-0 surface to the sphere by exact discrete conformal uniformization.
+    Map(map::MapArgs),
 }
 
 /// Run the command line and return the exit status.
@@ -41,6 +44,7 @@ pub fn main() -> ExitCode {
         Command::Convert(args) => convert::run(args),
         Command::Demo(args) => demo::run(args),
         Command::Repair(args) => repair::run(args),
+        Command::Map(args) => map::run(args),
     };
     match result {
         Ok(code) => code,
