@@ -12,6 +12,7 @@
 pub mod error;
 pub mod io;
 pub mod mesh;
+pub mod moebius;
 
 pub use error::{Error, Result};
 pub use mesh::TriMesh;
