@@ -1,0 +1,444 @@
+//! Weighted Moebius centring of a point set on the sphere.
+//!
+//! In: unit vectors `v_j` (the vertices of a mapped sphere) and weights
+//! `w_j >= 0` (the native surface's vertex areas, or all ones). Out: the
+//! boost `C` (a [`Moebius`] map) after which the weighted centroid
+//! `sum_j w_j C(v_j) / sum_j w_j` is the origin. `C` is unique up to a
+//! rotation applied after it; we return the pure boost (no rotation part).
+//!
+//! # Method (Springborn 2005)
+//!
+//! Springborn, "A unique representation of polyhedral types. Centering via
+//! Moebius transformations", Math. Z. 249 (2005) 513-517. Work in the
+//! hyperboloid model `H = {X : <X, X> = -1, T > 0}` of hyperbolic space with
+//! the Minkowski product `<X, Y> = X1 Y1 + X2 Y2 + X3 Y3 - T S`. Each point
+//! `v_j` of the sphere (the ideal boundary) is the light-like vector
+//! `V_j = (v_j, 1)`. For a point `X` of `H` let
+//!
+//! ```text
+//!     F(X) = sum_j w_j log(-<X, V_j>).
+//! ```
+//!
+//! `log(-<X, V_j>)` is the signed distance from `X` to a horosphere centred
+//! at `v_j` (a Busemann function), which is convex along geodesics; for at
+//! least three distinct points, none of which carries half of the total
+//! weight or more, `F` is strictly convex and proper, so it has exactly one
+//! minimiser `X*`. Along the geodesic `X(s) = (sinh s u, cosh s)` from the
+//! centre `O = (0, 0, 0, 1)` (`u` a unit vector) we have
+//! `-<X(s), V_j> = cosh s - sinh s (u . v_j)`, hence at `O`
+//!
+//! ```text
+//!     grad F = -sum_j w_j v_j,        Hess F = sum_j w_j (I - v_j v_j^T).
+//! ```
+//!
+//! A Moebius map `M` changes each term by the constant `log t_j` (where
+//! `M V_j = t_j (M v_j, 1)`), so `F` is equivariant: the boost taking `X*`
+//! to `O` makes the gradient at `O`, i.e. the weighted centroid, vanish.
+//! We minimise `F` by Riemannian Newton steps, always re-centring at `O`:
+//! solve `Hess F d = sum_j w_j v_j`, then backtrack (Armijo) along the
+//! geodesic in direction `d`, where
+//! `F(exp_O(tau d)) = sum_j w_j log(((1 + a_j) e^{-r} + (1 - a_j) e^{r}) / 2)`
+//! with `r = tau |d|` and `a_j = (d / |d|) . v_j` (a form without
+//! cancellation), and move the points by the boost of rapidity `r` towards
+//! `-d`. Quadratic convergence ends the iteration in a handful of steps.
+//!
+//! Invariants: the result is the same whatever the thread count (the sums
+//! run over fixed chunks in a fixed order).
+
+use crate::error::{Error, Result};
+use crate::mesh::{norm, scale, Vec3};
+use crate::moebius::Moebius;
+use rayon::prelude::*;
+
+/// Fixed chunk size of the deterministic parallel sums.
+const CHUNK: usize = 4096;
+
+/// Stopping rules of [`centre`].
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct CentringOptions {
+    /// Stop when the norm of the weighted centroid (of unit vectors,
+    /// divided by the total weight) is at most this.
+    pub tolerance: f64,
+    /// Give up (with [`Error::Algorithm`]) after this many Newton steps.
+    pub max_iterations: usize,
+}
+
+impl Default for CentringOptions {
+    fn default() -> Self {
+        CentringOptions {
+            tolerance: 1e-13,
+            max_iterations: 100,
+        }
+    }
+}
+
+/// Result of [`centre`].
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Centring {
+    /// The centring boost `C`.
+    pub transform: Moebius,
+    /// Newton steps taken.
+    pub iterations: usize,
+    /// Norm of the weighted centroid of `C(v_j)` (divided by the total weight).
+    pub centroid_norm: f64,
+}
+
+/// The weighted centroid `sum_j w_j v_j / sum_j w_j` (zero if the weights sum to zero).
+pub fn weighted_centroid(points: &[Vec3], weights: &[f64]) -> Vec3 {
+    let (c, _, wsum) = moments(points, weights);
+    if wsum > 0.0 {
+        scale(c, 1.0 / wsum)
+    } else {
+        [0.0; 3]
+    }
+}
+
+/// Find the boost that puts the weighted centroid of the unit vectors
+/// `points` at the origin (Springborn 2005; see the module doc).
+///
+/// Errors: lengths differ, fewer than three points, a point that is not a
+/// unit vector (tolerance `1e-6`), a negative or non-finite weight, a zero
+/// total weight, one point carrying half of the total weight or more (no
+/// centring exists), all points on one line through the centre, or no
+/// convergence within `opts.max_iterations`.
+pub fn centre(points: &[Vec3], weights: &[f64], opts: &CentringOptions) -> Result<Centring> {
+    validate(points, weights)?;
+    let wsum: f64 = weights.iter().sum();
+    let mut m = Moebius::identity();
+    let mut cur = vec![[0.0; 3]; points.len()];
+    let mut iterations = 0;
+    loop {
+        map_into(&m, points, &mut cur);
+        let (c, s, _) = moments(&cur, weights);
+        // Hess F = W I - S at the centre; it is singular exactly when all
+        // weight sits on one line through the centre (then boosts along that
+        // line keep the centroid and the centring is not unique).
+        let h = nalgebra::Matrix3::from_fn(|a, b| {
+            (if a == b { wsum } else { 0.0 }) - s[a][b]
+        });
+        if h.symmetric_eigenvalues().min() <= 1e-12 * wsum {
+            return Err(Error::Algorithm {
+                stage: "centring",
+                message: "the centring is not unique: all weight sits on one line through the centre (two antipodal clusters)".into(),
+            });
+        }
+        let cn = norm(c) / wsum;
+        if cn <= opts.tolerance {
+            break;
+        }
+        if iterations >= opts.max_iterations {
+            return Err(Error::Algorithm {
+                stage: "centring",
+                message: format!(
+                    "weighted centroid norm {cn:e} after {iterations} Newton steps, tolerance {:e}",
+                    opts.tolerance
+                ),
+            });
+        }
+        iterations += 1;
+        // Newton direction d solves Hess d = c.
+        let d = h
+            .cholesky()
+            .map(|ch| ch.solve(&nalgebra::Vector3::new(c[0], c[1], c[2])))
+            .ok_or_else(|| Error::Algorithm {
+                stage: "centring",
+                message: "the Hessian is singular: all weight sits on one line through the centre"
+                    .into(),
+            })?;
+        let d = [d[0], d[1], d[2]];
+        let r = norm(d);
+        if !(r.is_finite() && r > 0.0) {
+            return Err(Error::Algorithm {
+                stage: "centring",
+                message: format!("Newton step of length {r} at centroid norm {cn:e}"),
+            });
+        }
+        let dir = scale(d, 1.0 / r);
+        let decrement = c[0] * d[0] + c[1] * d[1] + c[2] * d[2];
+        let mut tau = 1.0;
+        // Below this decrement the change of F is lost in rounding and the
+        // full Newton step (quadratic convergence) is taken as it is.
+        if decrement > 1e-9 * wsum * r {
+            loop {
+                let f = geodesic_value(&cur, weights, dir, tau * r);
+                if f <= -1e-4 * tau * decrement {
+                    break;
+                }
+                tau *= 0.5;
+                if tau < 1e-12 {
+                    return Err(Error::Algorithm {
+                        stage: "centring",
+                        message: format!(
+                            "line search failed at centroid norm {cn:e} after {iterations} steps"
+                        ),
+                    });
+                }
+            }
+        }
+        m = Moebius::boost(scale(dir, -tau * r)).compose(&m);
+    }
+    // The pure boost taking X* = m^{-1}(O) to O.
+    let inv = m.inverse().lorentz().to_owned();
+    let p = [inv[0][3], inv[1][3], inv[2][3]];
+    let np = norm(p);
+    let transform = if np > 0.0 {
+        Moebius::boost(scale(p, -np.asinh() / np))
+    } else {
+        Moebius::identity()
+    };
+    map_into(&transform, points, &mut cur);
+    let (c, _, _) = moments(&cur, weights);
+    Ok(Centring {
+        transform,
+        iterations,
+        centroid_norm: norm(c) / wsum,
+    })
+}
+
+fn validate(points: &[Vec3], weights: &[f64]) -> Result<()> {
+    if points.len() != weights.len() {
+        return Err(Error::Invalid(format!(
+            "centring: {} points but {} weights",
+            points.len(),
+            weights.len()
+        )));
+    }
+    if points.len() < 3 {
+        return Err(Error::Invalid(format!(
+            "centring needs at least 3 points, got {}",
+            points.len()
+        )));
+    }
+    if let Some((i, p)) = points
+        .iter()
+        .enumerate()
+        .find(|(_, p)| !((norm(**p) - 1.0).abs() <= 1e-6))
+    {
+        return Err(Error::Invalid(format!(
+            "centring: point {i} = ({}, {}, {}) is not a unit vector",
+            p[0], p[1], p[2]
+        )));
+    }
+    if let Some((i, w)) = weights
+        .iter()
+        .enumerate()
+        .find(|(_, w)| !(w.is_finite() && **w >= 0.0))
+    {
+        return Err(Error::Invalid(format!(
+            "centring: weight {i} is {w}; expected a finite non-negative number"
+        )));
+    }
+    let wsum: f64 = weights.iter().sum();
+    if !(wsum > 0.0 && wsum.is_finite()) {
+        return Err(Error::Invalid(format!(
+            "centring: the weights sum to {wsum}; expected a positive finite total"
+        )));
+    }
+    if let Some((i, w)) = weights
+        .iter()
+        .enumerate()
+        .find(|(_, w)| **w >= 0.5 * wsum)
+    {
+        return Err(Error::Invalid(format!(
+            "centring: point {i} carries weight {w} of the total {wsum}; no centring exists when one point has half the weight or more (Springborn 2005)"
+        )));
+    }
+    Ok(())
+}
+
+/// `out[j] = m(points[j])`, in parallel (each entry is independent).
+fn map_into(m: &Moebius, points: &[Vec3], out: &mut [Vec3]) {
+    out.par_chunks_mut(CHUNK)
+        .zip(points.par_chunks(CHUNK))
+        .for_each(|(o, p)| {
+            for (o, p) in o.iter_mut().zip(p) {
+                *o = m.apply(*p);
+            }
+        });
+}
+
+/// `(sum w v, sum w v v^T, sum w)` over fixed chunks, added in chunk order.
+fn moments(points: &[Vec3], weights: &[f64]) -> (Vec3, [[f64; 3]; 3], f64) {
+    let parts: Vec<(Vec3, [[f64; 3]; 3], f64)> = points
+        .par_chunks(CHUNK)
+        .zip(weights.par_chunks(CHUNK))
+        .map(|(p, w)| {
+            let mut c = [0.0; 3];
+            let mut s = [[0.0; 3]; 3];
+            let mut t = 0.0;
+            for (v, &w) in p.iter().zip(w) {
+                t += w;
+                for a in 0..3 {
+                    c[a] += w * v[a];
+                    for b in a..3 {
+                        s[a][b] += w * v[a] * v[b];
+                    }
+                }
+            }
+            (c, s, t)
+        })
+        .collect();
+    let mut c = [0.0; 3];
+    let mut s = [[0.0; 3]; 3];
+    let mut t = 0.0;
+    for (pc, ps, pt) in parts {
+        t += pt;
+        for a in 0..3 {
+            c[a] += pc[a];
+            for b in a..3 {
+                s[a][b] += ps[a][b];
+            }
+        }
+    }
+    for a in 0..3 {
+        for b in 0..a {
+            s[a][b] = s[b][a];
+        }
+    }
+    (c, s, t)
+}
+
+/// `F(exp_O(r dir)) - F(O)` for the current points (see the module doc).
+fn geodesic_value(points: &[Vec3], weights: &[f64], dir: Vec3, r: f64) -> f64 {
+    let (em, ep) = ((-r).exp(), r.exp());
+    let parts: Vec<f64> = points
+        .par_chunks(CHUNK)
+        .zip(weights.par_chunks(CHUNK))
+        .map(|(p, w)| {
+            p.iter()
+                .zip(w)
+                .map(|(v, &w)| {
+                    let a = (dir[0] * v[0] + dir[1] * v[1] + dir[2] * v[2]).clamp(-1.0, 1.0);
+                    w * (0.5 * ((1.0 + a) * em + (1.0 - a) * ep)).ln()
+                })
+                .sum::<f64>()
+        })
+        .collect();
+    parts.iter().sum()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::align::landmarks::fit_rotation;
+    use crate::mesh::shapes::icosphere;
+    use crate::mesh::sub;
+    use crate::moebius::{mat3_apply, SeededRng};
+
+    fn random_cloud(seed: u64, n: usize) -> (Vec<Vec3>, Vec<f64>) {
+        let mut rng = SeededRng::new(seed);
+        // Lopsided: points crowd towards +z so the start is far from centred.
+        let pts = (0..n)
+            .map(|_| {
+                let v = rng.unit_vector();
+                Moebius::boost([0.0, 0.0, 1.5]).apply(v)
+            })
+            .collect();
+        let w = (0..n).map(|_| 0.1 + rng.uniform()).collect();
+        (pts, w)
+    }
+
+    #[test]
+    fn centroid_vanishes_after_centring() {
+        // Springborn 2005: the centring boost makes the weighted centroid zero.
+        for seed in 0..5 {
+            let (p, w) = random_cloud(seed, 500);
+            let before = norm(weighted_centroid(&p, &w));
+            assert!(before > 0.3, "test set should start off-centre: {before}");
+            let c = centre(&p, &w, &CentringOptions::default()).unwrap();
+            let moved = c.transform.apply_all(&p);
+            let after = norm(weighted_centroid(&moved, &w));
+            assert!(after < 1e-10, "seed {seed}: {after}");
+            assert!(c.iterations >= 2 && c.iterations < 30, "{}", c.iterations);
+            // A pure boost: symmetric Lorentz matrix.
+            let l = c.transform.lorentz();
+            for a in 0..4 {
+                for b in 0..4 {
+                    assert!((l[a][b] - l[b][a]).abs() < 1e-12);
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn centring_is_moebius_invariant_up_to_rotation() {
+        // Springborn 2005: the centred representative is unique up to a
+        // rotation, so centring M(P) for a random Moebius map M must give the
+        // centred P up to a rotation; the rotation is found by a Kabsch fit
+        // (Kabsch, Acta Cryst. A32 (1976) 922).
+        for seed in 0..4u64 {
+            let (p, w) = random_cloud(10 + seed, 300);
+            let m = Moebius::random(50 + seed, 2.0);
+            let q = m.apply_all(&p);
+            let opts = CentringOptions::default();
+            let cp = centre(&p, &w, &opts).unwrap().transform.apply_all(&p);
+            let cq = centre(&q, &w, &opts).unwrap().transform.apply_all(&q);
+            let r = fit_rotation(&cq, &cp, &w).unwrap();
+            let worst = cq
+                .iter()
+                .zip(&cp)
+                .map(|(a, b)| norm(sub(mat3_apply(&r, *a), *b)))
+                .fold(0.0, f64::max);
+            assert!(worst < 1e-9, "seed {seed}: {worst}");
+        }
+    }
+
+    #[test]
+    fn moved_icosphere_is_recentred() {
+        // The icosahedral sphere with its own vertex areas is centred by
+        // symmetry; after a random Moebius map, centring must bring every
+        // vertex back up to a rotation.
+        let ico = icosphere(3, 1.0);
+        let w = ico.vertex_areas();
+        assert!(norm(weighted_centroid(&ico.positions, &w)) < 1e-14);
+        let m = Moebius::random(3, 2.5);
+        let moved = m.apply_all(&ico.positions);
+        let c = centre(&moved, &w, &CentringOptions::default()).unwrap();
+        let back = c.transform.apply_all(&moved);
+        let r = fit_rotation(&back, &ico.positions, &w).unwrap();
+        let worst = back
+            .iter()
+            .zip(&ico.positions)
+            .map(|(a, b)| norm(sub(mat3_apply(&r, *a), *b)))
+            .fold(0.0, f64::max);
+        assert!(worst < 1e-9, "{worst}");
+    }
+
+    #[test]
+    fn thread_count_does_not_change_the_result() {
+        let (p, w) = random_cloud(77, 20_000);
+        let run = |threads: usize| {
+            let pool = rayon::ThreadPoolBuilder::new()
+                .num_threads(threads)
+                .build()
+                .unwrap();
+            pool.install(|| centre(&p, &w, &CentringOptions::default()).unwrap())
+        };
+        let a = run(1);
+        let b = run(3);
+        assert_eq!(a.transform.lorentz(), b.transform.lorentz());
+    }
+
+    #[test]
+    fn bad_input_is_refused() {
+        let (p, w) = random_cloud(1, 10);
+        let opts = CentringOptions::default();
+        assert!(centre(&p, &w[..9], &opts).is_err());
+        assert!(centre(&p[..2], &w[..2], &opts).is_err());
+        let mut heavy = w.clone();
+        heavy[4] = 1000.0;
+        let e = centre(&p, &heavy, &opts).unwrap_err().to_string();
+        assert!(e.contains("point 4") && e.contains("half"), "{e}");
+        let mut bad = p.clone();
+        bad[2] = [2.0, 0.0, 0.0];
+        assert!(centre(&bad, &w, &opts).unwrap_err().to_string().contains("point 2"));
+        let mut neg = w.clone();
+        neg[3] = -1.0;
+        assert!(centre(&p, &neg, &opts).unwrap_err().to_string().contains("weight 3"));
+        // All points on one line: two antipodal clusters.
+        let line: Vec<Vec3> = (0..6)
+            .map(|i| if i % 2 == 0 { [0.0, 0.0, 1.0] } else { [0.0, 0.0, -1.0] })
+            .collect();
+        assert!(centre(&line, &[1.0; 6], &opts).is_err());
+    }
+}
