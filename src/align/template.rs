@@ -458,6 +458,91 @@ pub fn build_template(subjects: &[TemplateSubject], opts: &TemplateOptions) -> R
     Ok(t)
 }
 
+/// One row of a cohort table (see [`read_cohort`]).
+#[derive(Debug, Clone, PartialEq)]
+pub struct CohortEntry {
+    /// Subject label.
+    pub subject: String,
+    /// Mapped sphere.
+    pub sphere: std::path::PathBuf,
+    /// Landmark CSV.
+    pub landmarks: std::path::PathBuf,
+    /// Native surface (centring weights, snapping of x,y,z landmarks).
+    pub surface: Option<std::path::PathBuf>,
+    /// Line of the table (1-based, the header is line 1).
+    pub line: usize,
+}
+
+/// Read a cohort table: CSV with header `subject,sphere,landmarks` and an
+/// optional fourth column `surface` (an empty cell means none). Relative
+/// paths are taken relative to the table's folder. Subject labels must be
+/// unique.
+pub fn read_cohort(path: &Path) -> Result<Vec<CohortEntry>> {
+    let bytes = std::fs::read(path).map_err(|e| Error::io(path, e))?;
+    let mut rdr = csv::ReaderBuilder::new()
+        .has_headers(true)
+        .trim(csv::Trim::All)
+        .from_reader(bytes.as_slice());
+    let header: Vec<String> = rdr
+        .headers()
+        .map_err(|e| Error::bad_file(path, "header", e.to_string()))?
+        .iter()
+        .map(|h| h.to_ascii_lowercase())
+        .collect();
+    let has_surface = header == ["subject", "sphere", "landmarks", "surface"];
+    if !has_surface && header != ["subject", "sphere", "landmarks"] {
+        return Err(Error::bad_file(
+            path,
+            "header",
+            format!("found columns {header:?}; expected `subject,sphere,landmarks` or `subject,sphere,landmarks,surface`"),
+        ));
+    }
+    let base = path.parent().unwrap_or(Path::new(""));
+    let resolve = |s: &str| {
+        let p = Path::new(s);
+        if p.is_absolute() {
+            p.to_path_buf()
+        } else {
+            base.join(p)
+        }
+    };
+    let mut out: Vec<CohortEntry> = Vec::new();
+    for (k, rec) in rdr.records().enumerate() {
+        let line = k + 2;
+        let element = format!("line {line}");
+        let rec = rec.map_err(|e| Error::bad_file(path, &element, e.to_string()))?;
+        let field = |i: usize| rec.get(i).unwrap_or("");
+        for (i, what) in [(0, "subject"), (1, "sphere"), (2, "landmarks")] {
+            if field(i).is_empty() {
+                return Err(Error::bad_file(path, &element, format!("empty `{what}` cell")));
+            }
+        }
+        if out.iter().any(|e| e.subject == field(0)) {
+            return Err(Error::bad_file(
+                path,
+                &element,
+                format!("subject `{}` is listed twice", field(0)),
+            ));
+        }
+        let surface = if has_surface && !field(3).is_empty() {
+            Some(resolve(field(3)))
+        } else {
+            None
+        };
+        out.push(CohortEntry {
+            subject: field(0).to_string(),
+            sphere: resolve(field(1)),
+            landmarks: resolve(field(2)),
+            surface,
+            line,
+        });
+    }
+    if out.is_empty() {
+        return Err(Error::bad_file(path, "rows", "no subjects; expected at least one row"));
+    }
+    Ok(out)
+}
+
 fn subject_error(id: &str, e: Error) -> Error {
     match e {
         Error::Invalid(m) => Error::Invalid(format!("subject {id}: {m}")),
@@ -622,6 +707,25 @@ mod tests {
         let mean_spread: f64 =
             t.landmarks.iter().map(|l| l.spread_degrees.unwrap()).sum::<f64>() / 8.0;
         assert!(mean_spread > 1.0, "{mean_spread}");
+    }
+
+    #[test]
+    fn cohort_table_paths_are_relative_to_the_table() {
+        let dir = temp_dir("cohort");
+        let f = dir.join("cohort.csv");
+        std::fs::write(&f, "subject,sphere,landmarks,surface\nA,a/s.obj,a/l.csv,\nB,/abs/s.obj,b.csv,b/n.obj\n").unwrap();
+        let c = read_cohort(&f).unwrap();
+        assert_eq!(c.len(), 2);
+        assert_eq!(c[0].sphere, dir.join("a/s.obj"));
+        assert_eq!(c[0].surface, None);
+        assert_eq!(c[1].sphere, std::path::PathBuf::from("/abs/s.obj"));
+        assert_eq!(c[1].surface, Some(dir.join("b/n.obj")));
+        std::fs::write(&f, "subject,sphere,landmarks\nA,s,l\nA,t,m\n").unwrap();
+        let e = read_cohort(&f).unwrap_err().to_string();
+        assert!(e.contains("line 3") && e.contains("twice"), "{e}");
+        std::fs::write(&f, "id,sphere\nA,s\n").unwrap();
+        assert!(read_cohort(&f).unwrap_err().to_string().contains("header"));
+        std::fs::remove_dir_all(&dir).unwrap();
     }
 
     #[test]

@@ -6,6 +6,8 @@
 use clap::{Parser, Subcommand};
 use std::process::ExitCode;
 
+mod align;
+
 /// Cortical surfaces of a cohort to one common sphere. Research use only:
 /// not a medical device; results need review by a trained analyst.
 #[derive(Parser, Debug)]
@@ -17,12 +19,19 @@ pub struct Cli {
 
 #[derive(Subcommand, Debug)]
 enum Command {
+    /// Moebius-normalise a mapped sphere: centre it and fit its landmarks to a template.
+    Align(align::AlignArgs),
+    /// Estimate a landmark template from a cohort of mapped spheres.
+    Template(align::TemplateArgs),
 }
 
 /// Run the command line and return the exit status.
 pub fn main() -> ExitCode {
     let cli = Cli::parse();
-    let result: horosphere::Result<ExitCode> = match cli.command {};
+    let result: horosphere::Result<ExitCode> = match cli.command {
+        Command::Align(args) => align::run_align(&args),
+        Command::Template(args) => align::run_template(&args),
+    };
     match result {
         Ok(code) => code,
         Err(e) => {
