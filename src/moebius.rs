@@ -232,12 +232,7 @@ impl Moebius {
             [0.0; 3]
         };
         let r = Moebius::boost(beta).inverse().compose(self);
-        let mut m = [[0.0; 3]; 3];
-        for a in 0..3 {
-            for b in 0..3 {
-                m[a][b] = r.l[a][b];
-            }
-        }
+        let m: Mat3 = std::array::from_fn(|a| std::array::from_fn(|b| r.l[a][b]));
         (beta, m)
     }
 
@@ -246,12 +241,18 @@ impl Moebius {
     /// holds the coordinates of `A E_k A^*`, where `E_k` is the Hermitian
     /// matrix of the `k`-th basis vector (see the module doc).
     pub fn from_sl2c(a: &Mat2c) -> Result<Self> {
-        if a.iter().flatten().any(|c| !(c.re.is_finite() && c.im.is_finite())) {
-            return Err(Error::Invalid("complex matrix has a non-finite entry".into()));
+        if a.iter()
+            .flatten()
+            .any(|c| !(c.re.is_finite() && c.im.is_finite()))
+        {
+            return Err(Error::Invalid(
+                "complex matrix has a non-finite entry".into(),
+            ));
         }
         let det = a[0][0] * a[1][1] - a[0][1] * a[1][0];
         let size = a.iter().flatten().fold(0.0f64, |m, c| m.max(c.norm()));
-        if !(det.norm() > 1e-14 * size * size) {
+        let invertible = det.norm() > 1e-14 * size * size;
+        if !invertible {
             return Err(Error::Invalid(
                 "complex matrix is singular; a Moebius transformation needs a non-zero determinant"
                     .into(),
@@ -318,10 +319,11 @@ impl Moebius {
         let det = a1[0] * a2[1] - a2[0] * a1[1];
         let s = det.sqrt();
         let mut a = [[a1[0] / s, a2[0] / s], [a1[1] / s, a2[1] / s]];
-        let big = a
-            .iter()
-            .flatten()
-            .fold(C64::new(0.0, 0.0), |m, c| if c.norm() > m.norm() { *c } else { m });
+        let big =
+            a.iter().flatten().fold(
+                C64::new(0.0, 0.0),
+                |m, c| if c.norm() > m.norm() { *c } else { m },
+            );
         if big.re < 0.0 {
             for c in a.iter_mut().flatten() {
                 *c = -*c;
@@ -343,7 +345,8 @@ impl Moebius {
         for (what, pts) in [("source", &z), ("target", &w)] {
             for (a, b) in [(0, 1), (1, 2), (0, 2)] {
                 let d = norm(crate::mesh::sub(pts[a], pts[b]));
-                if !(d > 1e-12) {
+                let distinct = d > 1e-12;
+                if !distinct {
                     return Err(Error::Invalid(format!(
                         "{what} points {a} and {b} coincide (chordal distance {d:e}); three distinct points are needed"
                     )));
@@ -353,7 +356,10 @@ impl Moebius {
         let mz = to_zero_one_infinity(&z);
         let mw = to_zero_one_infinity(&w);
         let det = mw[0][0] * mw[1][1] - mw[0][1] * mw[1][0];
-        let mw_inv = [[mw[1][1] / det, -mw[0][1] / det], [-mw[1][0] / det, mw[0][0] / det]];
+        let mw_inv = [
+            [mw[1][1] / det, -mw[0][1] / det],
+            [-mw[1][0] / det, mw[0][0] / det],
+        ];
         Moebius::from_sl2c(&mul2(&mw_inv, &mz))
     }
 
@@ -453,9 +459,21 @@ pub fn rotation_matrix(omega: Vec3) -> Mat3 {
     };
     let [x, y, z] = omega;
     [
-        [1.0 - c1 * (y * y + z * z), c1 * x * y - s * z, c1 * x * z + s * y],
-        [c1 * x * y + s * z, 1.0 - c1 * (x * x + z * z), c1 * y * z - s * x],
-        [c1 * x * z - s * y, c1 * y * z + s * x, 1.0 - c1 * (x * x + y * y)],
+        [
+            1.0 - c1 * (y * y + z * z),
+            c1 * x * y - s * z,
+            c1 * x * z + s * y,
+        ],
+        [
+            c1 * x * y + s * z,
+            1.0 - c1 * (x * x + z * z),
+            c1 * y * z - s * x,
+        ],
+        [
+            c1 * x * z - s * y,
+            c1 * y * z + s * x,
+            1.0 - c1 * (x * x + y * y),
+        ],
     ]
 }
 
@@ -484,11 +502,7 @@ pub fn quaternion_matrix(q: [f64; 4]) -> Mat3 {
 /// `r x`.
 #[inline]
 pub fn mat3_apply(r: &Mat3, x: Vec3) -> Vec3 {
-    [
-        dot(r[0], x),
-        dot(r[1], x),
-        dot(r[2], x),
-    ]
+    [dot(r[0], x), dot(r[1], x), dot(r[2], x)]
 }
 
 /// Angle between two non-zero vectors in radians, accurate for small and
@@ -579,8 +593,14 @@ fn hermitian_coords(h: &Mat2c) -> [f64; 4] {
 /// The Hermitian matrix of coordinates `x = (X1, X2, X3, T)`.
 fn coords_hermitian(x: &[f64; 4]) -> Mat2c {
     [
-        [C64::new(0.5 * (x[3] + x[2]), 0.0), C64::new(0.5 * x[0], 0.5 * x[1])],
-        [C64::new(0.5 * x[0], -0.5 * x[1]), C64::new(0.5 * (x[3] - x[2]), 0.0)],
+        [
+            C64::new(0.5 * (x[3] + x[2]), 0.0),
+            C64::new(0.5 * x[0], 0.5 * x[1]),
+        ],
+        [
+            C64::new(0.5 * x[0], -0.5 * x[1]),
+            C64::new(0.5 * (x[3] - x[2]), 0.0),
+        ],
     ]
 }
 
@@ -723,7 +743,10 @@ mod tests {
                 stereographic(w[2]).unwrap(),
                 stereographic(f.apply(x)).unwrap(),
             ]);
-            assert!((before - after).norm() < 1e-9 * (1.0 + before.norm()), "seed {seed}");
+            assert!(
+                (before - after).norm() < 1e-9 * (1.0 + before.norm()),
+                "seed {seed}"
+            );
         }
         // Through the pole: 0, 1, infinity to 1, infinity, 0 is z -> 1/(1 - z)
         // (a rotation of order three).

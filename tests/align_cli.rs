@@ -43,7 +43,11 @@ fn subject(dir: &Path, tag: &str, m: &Moebius) -> (PathBuf, PathBuf, PathBuf) {
         faces: base.faces.clone(),
     };
     let sphere = TriMesh {
-        positions: m.apply_all(&base.positions).iter().map(|p| scale(*p, 100.0)).collect(),
+        positions: m
+            .apply_all(&base.positions)
+            .iter()
+            .map(|p| scale(*p, 100.0))
+            .collect(),
         faces: base.faces.clone(),
     };
     let np = dir.join(format!("{tag}-native.obj"));
@@ -66,7 +70,9 @@ fn write_template(dir: &Path) -> PathBuf {
         let x = base.positions[v];
         let lat = x[2].atan2(x[0].hypot(x[1])).to_degrees();
         let lon = x[1].atan2(x[0]).to_degrees();
-        t += &format!("[[landmark]]\nname = \"mark-{i}\"\nlatitude = {lat:?}\nlongitude = {lon:?}\n\n");
+        t += &format!(
+            "[[landmark]]\nname = \"mark-{i}\"\nlatitude = {lat:?}\nlongitude = {lon:?}\n\n"
+        );
     }
     let p = dir.join("template.toml");
     std::fs::write(&p, t).unwrap();
@@ -82,8 +88,18 @@ fn align_undoes_a_moebius_map_and_reports_it() {
     let out = dir.join("aligned.obj");
     let rep = dir.join("align.json");
     let o = run(&[
-        "align", s(&sp), "--landmarks", s(&lp), "--template", s(&tp), "-o", s(&out),
-        "--surface", s(&np), "--report", s(&rep),
+        "align",
+        s(&sp),
+        "--landmarks",
+        s(&lp),
+        "--template",
+        s(&tp),
+        "-o",
+        s(&out),
+        "--surface",
+        s(&np),
+        "--report",
+        s(&rep),
     ]);
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     let aligned = horosphere::io::read_mesh(&out).unwrap();
@@ -132,10 +148,19 @@ fn bad_input_gives_clear_errors_and_no_output() {
     let tp = write_template(&dir);
     let out = dir.join("aligned.obj");
     let base_args = |lp: &Path, extra: &[&str]| {
-        let mut v: Vec<String> = ["align", s(&sp), "--landmarks", s(lp), "--template", s(&tp), "-o", s(&out)]
-            .iter()
-            .map(|x| x.to_string())
-            .collect();
+        let mut v: Vec<String> = [
+            "align",
+            s(&sp),
+            "--landmarks",
+            s(lp),
+            "--template",
+            s(&tp),
+            "-o",
+            s(&out),
+        ]
+        .iter()
+        .map(|x| x.to_string())
+        .collect();
         v.extend(extra.iter().map(|x| x.to_string()));
         v
     };
@@ -153,20 +178,32 @@ fn bad_input_gives_clear_errors_and_no_output() {
     // A landmark missing from the template.
     let bad = dir.join("missing.csv");
     std::fs::write(&bad, "name,vertex\nmark-0,3\nmark-1,60\nelsewhere,129\n").unwrap();
-    check(base_args(&bad, &["--center", "uniform"]), &["missing.csv", "`elsewhere` is not in the template"]);
+    check(
+        base_args(&bad, &["--center", "uniform"]),
+        &["missing.csv", "`elsewhere` is not in the template"],
+    );
     // Index out of range.
     std::fs::write(&bad, "name,vertex\nmark-0,3\nmark-1,60\nmark-2,642\n").unwrap();
-    check(base_args(&bad, &["--center", "uniform"]), &["missing.csv", "line 4", "out of range"]);
+    check(
+        base_args(&bad, &["--center", "uniform"]),
+        &["missing.csv", "line 4", "out of range"],
+    );
     // Fewer than 3 landmarks for the mobius fit.
     std::fs::write(&bad, "name,vertex\nmark-0,3\nmark-1,60\n").unwrap();
     check(base_args(&bad, &["--center", "uniform"]), &["at least 3"]);
     // Coincident landmarks.
     std::fs::write(&bad, "name,vertex\nmark-0,3\nmark-1,60\nmark-2,3\n").unwrap();
-    check(base_args(&bad, &["--center", "uniform"]), &["line 4", "coincident"]);
+    check(
+        base_args(&bad, &["--center", "uniform"]),
+        &["line 4", "coincident"],
+    );
     // Native surface with another vertex count.
     let small = dir.join("small.obj");
     horosphere::io::write_mesh(&small, &icosphere(2, 100.0)).unwrap();
-    check(base_args(&lp, &["--surface", s(&small)]), &["small.obj", "162 vertices", "642"]);
+    check(
+        base_args(&lp, &["--surface", s(&small)]),
+        &["small.obj", "162 vertices", "642"],
+    );
     // Landmarks in mm need the surface; with it they snap.
     std::fs::write(&bad, "name,x,y,z\nmark-0,1,2,3\n").unwrap();
     check(base_args(&bad, &["--center", "none"]), &["native surface"]);
@@ -199,8 +236,17 @@ fn template_from_a_cohort_then_align() {
     // Every subject aligns to the built template with (near) zero residual.
     let out = dir.join("aligned.obj");
     let o = run(&[
-        "align", s(&dir.join("s2-sphere.obj")), "--landmarks", s(&dir.join("s2-landmarks.csv")),
-        "--template", s(&tp), "-o", s(&out), "--surface", s(&dir.join("s2-native.obj")), "--json",
+        "align",
+        s(&dir.join("s2-sphere.obj")),
+        "--landmarks",
+        s(&dir.join("s2-landmarks.csv")),
+        "--template",
+        s(&tp),
+        "-o",
+        s(&out),
+        "--surface",
+        s(&dir.join("s2-native.obj")),
+        "--json",
     ]);
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     let r: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
@@ -213,7 +259,10 @@ fn template_from_a_cohort_then_align() {
     let o = run(&["template", "--cohort", s(&cohort), "-o", s(&tp2)]);
     let err = String::from_utf8_lossy(&o.stderr);
     assert_eq!(o.status.code(), Some(3), "{err}");
-    assert!(err.contains("broken") && err.contains("nothing.obj"), "{err}");
+    assert!(
+        err.contains("broken") && err.contains("nothing.obj"),
+        "{err}"
+    );
     assert!(tp2.exists());
     std::fs::remove_dir_all(&dir).unwrap();
 }

@@ -113,9 +113,7 @@ pub fn centre(points: &[Vec3], weights: &[f64], opts: &CentringOptions) -> Resul
         // Hess F = W I - S at the centre; it is singular exactly when all
         // weight sits on one line through the centre (then boosts along that
         // line keep the centroid and the centring is not unique).
-        let h = nalgebra::Matrix3::from_fn(|a, b| {
-            (if a == b { wsum } else { 0.0 }) - s[a][b]
-        });
+        let h = nalgebra::Matrix3::from_fn(|a, b| (if a == b { wsum } else { 0.0 }) - s[a][b]);
         if h.symmetric_eigenvalues().min() <= 1e-12 * wsum {
             return Err(Error::Algorithm {
                 stage: "centring",
@@ -209,11 +207,10 @@ fn validate(points: &[Vec3], weights: &[f64]) -> Result<()> {
             points.len()
         )));
     }
-    if let Some((i, p)) = points
-        .iter()
-        .enumerate()
-        .find(|(_, p)| !((norm(**p) - 1.0).abs() <= 1e-6))
-    {
+    if let Some((i, p)) = points.iter().enumerate().find(|(_, p)| {
+        let unit = (norm(**p) - 1.0).abs() <= 1e-6;
+        !unit
+    }) {
         return Err(Error::Invalid(format!(
             "centring: point {i} = ({}, {}, {}) is not a unit vector",
             p[0], p[1], p[2]
@@ -234,11 +231,7 @@ fn validate(points: &[Vec3], weights: &[f64]) -> Result<()> {
             "centring: the weights sum to {wsum}; expected a positive finite total"
         )));
     }
-    if let Some((i, w)) = weights
-        .iter()
-        .enumerate()
-        .find(|(_, w)| **w >= 0.5 * wsum)
-    {
+    if let Some((i, w)) = weights.iter().enumerate().find(|(_, w)| **w >= 0.5 * wsum) {
         return Err(Error::Invalid(format!(
             "centring: point {i} carries weight {w} of the total {wsum}; no centring exists when one point has half the weight or more (Springborn 2005)"
         )));
@@ -290,11 +283,7 @@ fn moments(points: &[Vec3], weights: &[f64]) -> (Vec3, [[f64; 3]; 3], f64) {
             }
         }
     }
-    for a in 0..3 {
-        for b in 0..a {
-            s[a][b] = s[b][a];
-        }
-    }
+    (s[1][0], s[2][0], s[2][1]) = (s[0][1], s[0][2], s[1][2]);
     (c, s, t)
 }
 
@@ -352,9 +341,9 @@ mod tests {
             assert!(c.iterations >= 2 && c.iterations < 30, "{}", c.iterations);
             // A pure boost: symmetric Lorentz matrix.
             let l = c.transform.lorentz();
-            for a in 0..4 {
-                for b in 0..4 {
-                    assert!((l[a][b] - l[b][a]).abs() < 1e-12);
+            for (a, row) in l.iter().enumerate() {
+                for (b, v) in row.iter().enumerate() {
+                    assert!((v - l[b][a]).abs() < 1e-12);
                 }
             }
         }
@@ -431,13 +420,25 @@ mod tests {
         assert!(e.contains("point 4") && e.contains("half"), "{e}");
         let mut bad = p.clone();
         bad[2] = [2.0, 0.0, 0.0];
-        assert!(centre(&bad, &w, &opts).unwrap_err().to_string().contains("point 2"));
+        assert!(centre(&bad, &w, &opts)
+            .unwrap_err()
+            .to_string()
+            .contains("point 2"));
         let mut neg = w.clone();
         neg[3] = -1.0;
-        assert!(centre(&p, &neg, &opts).unwrap_err().to_string().contains("weight 3"));
+        assert!(centre(&p, &neg, &opts)
+            .unwrap_err()
+            .to_string()
+            .contains("weight 3"));
         // All points on one line: two antipodal clusters.
         let line: Vec<Vec3> = (0..6)
-            .map(|i| if i % 2 == 0 { [0.0, 0.0, 1.0] } else { [0.0, 0.0, -1.0] })
+            .map(|i| {
+                if i % 2 == 0 {
+                    [0.0, 0.0, 1.0]
+                } else {
+                    [0.0, 0.0, -1.0]
+                }
+            })
             .collect();
         assert!(centre(&line, &[1.0; 6], &opts).is_err());
     }

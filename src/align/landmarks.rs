@@ -196,7 +196,11 @@ pub fn read_landmarks(path: &Path) -> Result<Vec<RawLandmark>> {
         });
     }
     if out.is_empty() {
-        return Err(Error::bad_file(path, "rows", "no landmarks; expected at least one row"));
+        return Err(Error::bad_file(
+            path,
+            "rows",
+            "no landmarks; expected at least one row",
+        ));
     }
     Ok(out)
 }
@@ -243,9 +247,8 @@ pub fn resolve_landmarks(
                         "landmark given as x,y,z in mm needs the native surface to snap to",
                     )
                 })?;
-                let (v, d) = nearest_vertex(nat, p).ok_or_else(|| {
-                    Error::Invalid("the native surface has no vertices".into())
-                })?;
+                let (v, d) = nearest_vertex(nat, p)
+                    .ok_or_else(|| Error::Invalid("the native surface has no vertices".into()))?;
                 (v, Some(d))
             }
         };
@@ -314,7 +317,8 @@ pub fn check_pairs(p: &[Vec3], q: &[Vec3], w: &[f64], min: usize, names: &[Strin
             )));
         }
         for (what, x) in [("source", p[i]), ("target", q[i])] {
-            if !((norm(x) - 1.0).abs() <= 1e-6) {
+            let unit = (norm(x) - 1.0).abs() <= 1e-6;
+            if !unit {
                 return Err(Error::Invalid(format!(
                     "{} {what} ({}, {}, {}) is not a unit vector",
                     name(i),
@@ -379,7 +383,8 @@ pub fn fit_rotation(p: &[Vec3], q: &[Vec3], w: &[f64]) -> Result<Mat3> {
     let s = svd.singular_values;
     let mut order = [0usize, 1, 2];
     order.sort_by(|&a, &b| s[b].total_cmp(&s[a]));
-    if !(s[order[1]] > 1e-12 * s[order[0]]) {
+    let spans_two = s[order[1]] > 1e-12 * s[order[0]];
+    if !spans_two {
         return Err(Error::Invalid(
             "rotation fit: the landmarks span fewer than two directions (need two that are neither equal nor antipodal)".into(),
         ));
@@ -473,7 +478,8 @@ pub fn residuals_degrees(t: &Moebius, p: &[Vec3], q: &[Vec3]) -> Vec<f64> {
 /// the first 40 pairs (the search is cubic).
 fn spread_triple(p: &[Vec3], q: &[Vec3]) -> (usize, usize, usize) {
     let n = p.len().min(40);
-    let area = |x: &[Vec3], a: usize, b: usize, c: usize| norm(cross(sub(x[b], x[a]), sub(x[c], x[a])));
+    let area =
+        |x: &[Vec3], a: usize, b: usize, c: usize| norm(cross(sub(x[b], x[a]), sub(x[c], x[a])));
     let mut best = (0, 1, 2);
     let mut best_v = -1.0;
     for a in 0..n {
@@ -491,7 +497,13 @@ fn spread_triple(p: &[Vec3], q: &[Vec3]) -> (usize, usize, usize) {
 }
 
 /// Levenberg-Marquardt from `start` in the chart `R(omega) B(beta) T_k`.
-fn levenberg_marquardt(start: Moebius, p: &[Vec3], q: &[Vec3], w: &[f64], opts: &FitOptions) -> Fit {
+fn levenberg_marquardt(
+    start: Moebius,
+    p: &[Vec3],
+    q: &[Vec3],
+    w: &[f64],
+    opts: &FitOptions,
+) -> Fit {
     let mut t = start;
     let mut cost = chordal_cost(&t, p, q, w);
     let mut lambda = 1e-3;
@@ -528,11 +540,9 @@ fn levenberg_marquardt(start: Moebius, p: &[Vec3], q: &[Vec3], w: &[f64], opts: 
                 lambda *= 10.0;
                 continue;
             };
-            let cand = Moebius::rotation_boost(
-                [step[0], step[1], step[2]],
-                [step[3], step[4], step[5]],
-            )
-            .compose(&t);
+            let cand =
+                Moebius::rotation_boost([step[0], step[1], step[2]], [step[3], step[4], step[5]])
+                    .compose(&t);
             let c = chordal_cost(&cand, p, q, w);
             if step.norm() < opts.step_tolerance {
                 small_step = true;
@@ -624,7 +634,8 @@ mod tests {
             let mut e = [0.0; 6];
             e[k] = 1e-6;
             let c = chordal_cost(
-                &Moebius::rotation_boost([e[0], e[1], e[2]], [e[3], e[4], e[5]]).compose(&f.transform),
+                &Moebius::rotation_boost([e[0], e[1], e[2]], [e[3], e[4], e[5]])
+                    .compose(&f.transform),
                 &p,
                 &q,
                 &w,
@@ -696,7 +707,8 @@ mod tests {
                 let mut om = [0.0; 3];
                 om[k] = s;
                 let dr = crate::moebius::rotation_matrix(om);
-                let m = nalgebra::Matrix3::from_fn(|a, b| dr[a][b]) * nalgebra::Matrix3::from_fn(|a, b| r[a][b]);
+                let m = nalgebra::Matrix3::from_fn(|a, b| dr[a][b])
+                    * nalgebra::Matrix3::from_fn(|a, b| r[a][b]);
                 let rr: Mat3 = std::array::from_fn(|a| std::array::from_fn(|b| m[(a, b)]));
                 assert!(cost(&rr) > c0, "rotation {k} {s} lowers the cost");
             }
@@ -723,7 +735,10 @@ mod tests {
         let mut pc = p.clone();
         pc[3] = pc[1];
         let e = fit_mobius(&pc, &q, &[1.0; 4], &names, &o).unwrap_err();
-        assert!(e.to_string().contains("`b` and landmark `d` coincide"), "{e}");
+        assert!(
+            e.to_string().contains("`b` and landmark `d` coincide"),
+            "{e}"
+        );
         let e = fit_mobius(&p, &q, &[1.0, 1.0, 0.0, 1.0], &names, &o).unwrap_err();
         assert!(e.to_string().contains("`c`"), "{e}");
         let e = fit(FitKind::Rotation, &p[..1], &q[..1], &[1.0], &names[..1], &o).unwrap_err();
@@ -740,8 +755,13 @@ mod tests {
         let lm = resolve_landmarks(&raw, 3, None, &f).unwrap();
         assert_eq!(lm[1].vertex, 2);
         // Out of range.
-        let e = resolve_landmarks(&raw, 2, None, &f).unwrap_err().to_string();
-        assert!(e.contains("line 3") && e.contains("out of range") && e.contains("lm.csv"), "{e}");
+        let e = resolve_landmarks(&raw, 2, None, &f)
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("line 3") && e.contains("out of range") && e.contains("lm.csv"),
+            "{e}"
+        );
         // Points snap to the nearest vertex of the native surface.
         let native = [[0.0, 0.0, 0.0], [10.0, 0.0, 0.0], [0.0, 10.0, 0.0]];
         std::fs::write(&f, "name,x,y,z\nalpha,9,1,0\nbeta,0.5,-0.5,0\n").unwrap();
@@ -749,25 +769,43 @@ mod tests {
         let lm = resolve_landmarks(&raw, 3, Some(&native), &f).unwrap();
         assert_eq!((lm[0].vertex, lm[1].vertex), (1, 0));
         assert!((lm[0].snap_mm.unwrap() - 2f64.sqrt()).abs() < 1e-12);
-        let e = resolve_landmarks(&raw, 3, None, &f).unwrap_err().to_string();
+        let e = resolve_landmarks(&raw, 3, None, &f)
+            .unwrap_err()
+            .to_string();
         assert!(e.contains("native surface"), "{e}");
         // Vertex-count mismatch between native surface and sphere.
-        let e = resolve_landmarks(&raw, 4, Some(&native), &f).unwrap_err().to_string();
+        let e = resolve_landmarks(&raw, 4, Some(&native), &f)
+            .unwrap_err()
+            .to_string();
         assert!(e.contains("3 vertices") && e.contains("4"), "{e}");
         // Both points snap to the same vertex.
         std::fs::write(&f, "name,x,y,z\nalpha,9,1,0\nbeta,11,0,0\n").unwrap();
         let raw = read_landmarks(&f).unwrap();
-        let e = resolve_landmarks(&raw, 3, Some(&native), &f).unwrap_err().to_string();
+        let e = resolve_landmarks(&raw, 3, Some(&native), &f)
+            .unwrap_err()
+            .to_string();
         assert!(e.contains("coincident") && e.contains("alpha"), "{e}");
         // Bad header, duplicate names, bad numbers.
         std::fs::write(&f, "label,index\na,1\n").unwrap();
-        assert!(read_landmarks(&f).unwrap_err().to_string().contains("header"));
+        assert!(read_landmarks(&f)
+            .unwrap_err()
+            .to_string()
+            .contains("header"));
         std::fs::write(&f, "name,vertex\na,1\na,2\n").unwrap();
-        assert!(read_landmarks(&f).unwrap_err().to_string().contains("twice"));
+        assert!(read_landmarks(&f)
+            .unwrap_err()
+            .to_string()
+            .contains("twice"));
         std::fs::write(&f, "name,vertex\na,-1\n").unwrap();
-        assert!(read_landmarks(&f).unwrap_err().to_string().contains("line 2"));
+        assert!(read_landmarks(&f)
+            .unwrap_err()
+            .to_string()
+            .contains("line 2"));
         std::fs::write(&f, "name,x,y,z\na,1,nan,0\n").unwrap();
-        assert!(read_landmarks(&f).unwrap_err().to_string().contains("finite"));
+        assert!(read_landmarks(&f)
+            .unwrap_err()
+            .to_string()
+            .contains("finite"));
         std::fs::remove_dir_all(&dir).unwrap();
     }
 }

@@ -105,7 +105,8 @@ pub fn unit_directions(positions: &[Vec3]) -> Result<(Vec<Vec3>, f64)> {
     let mut out = Vec::with_capacity(positions.len());
     for (i, p) in positions.iter().enumerate() {
         let r = norm(*p);
-        if !((r / radius - 1.0).abs() <= SPHERE_RADIUS_TOLERANCE) {
+        let on_sphere = (r / radius - 1.0).abs() <= SPHERE_RADIUS_TOLERANCE;
+        if !on_sphere {
             return Err(Error::Invalid(format!(
                 "vertex {i} is at distance {r} from the origin but the mean radius is {radius}; expected a sphere centred at the origin (within {}%)",
                 SPHERE_RADIUS_TOLERANCE * 100.0
@@ -237,7 +238,9 @@ mod tests {
             landmarks: verts
                 .iter()
                 .enumerate()
-                .map(|(i, &v)| TemplateLandmark::from_direction(&format!("p{i}"), base.positions[v], 1.0))
+                .map(|(i, &v)| {
+                    TemplateLandmark::from_direction(&format!("p{i}"), base.positions[v], 1.0)
+                })
                 .collect(),
             built: None,
         };
@@ -275,16 +278,24 @@ mod tests {
     fn align_errors_name_the_landmark() {
         let (moved, w, mut lms, t, _) = setup();
         lms[2].name = "nowhere".into();
-        let e = align(&moved, Some(&w), &lms, &t, &AlignOptions::default()).unwrap_err().to_string();
+        let e = align(&moved, Some(&w), &lms, &t, &AlignOptions::default())
+            .unwrap_err()
+            .to_string();
         assert!(e.contains("`nowhere` is not in the template"), "{e}");
         let (moved, w, mut lms, t, _) = setup();
         lms[1].vertex = moved.len();
-        let e = align(&moved, Some(&w), &lms, &t, &AlignOptions::default()).unwrap_err().to_string();
+        let e = align(&moved, Some(&w), &lms, &t, &AlignOptions::default())
+            .unwrap_err()
+            .to_string();
         assert!(e.contains("out of range"), "{e}");
         let (moved, w, lms, t, _) = setup();
-        let e = align(&moved, Some(&w[1..]), &lms, &t, &AlignOptions::default()).unwrap_err().to_string();
+        let e = align(&moved, Some(&w[1..]), &lms, &t, &AlignOptions::default())
+            .unwrap_err()
+            .to_string();
         assert!(e.contains("vertex count"), "{e}");
-        let e = align(&moved, Some(&w), &lms[..2], &t, &AlignOptions::default()).unwrap_err().to_string();
+        let e = align(&moved, Some(&w), &lms[..2], &t, &AlignOptions::default())
+            .unwrap_err()
+            .to_string();
         assert!(e.contains("at least 3"), "{e}");
     }
 

@@ -156,13 +156,15 @@ impl Template {
                     j + 1
                 )));
             }
-            if !(l.latitude.abs() <= 90.0) {
+            let lat_ok = l.latitude.abs() <= 90.0;
+            if !lat_ok {
                 return Err(Error::Invalid(format!(
                     "{el}: latitude {} is outside [-90, 90] degrees",
                     l.latitude
                 )));
             }
-            if !(l.longitude.abs() <= 360.0) {
+            let lon_ok = l.longitude.abs() <= 360.0;
+            if !lon_ok {
                 return Err(Error::Invalid(format!(
                     "{el}: longitude {} is outside [-360, 360] degrees",
                     l.longitude
@@ -370,8 +372,10 @@ pub fn build_template(subjects: &[TemplateSubject], opts: &TemplateOptions) -> R
             let w = vec![1.0; p.len()];
             let f = fit(opts.fit, &p, &q, &w, &lab, &opts.fit_options)
                 .map_err(|e| subject_error(subjects[s].id, e))?;
-            let fitted: Vec<(usize, Vec3)> =
-                pts.iter().map(|&(k, x)| (k, f.transform.apply(x))).collect();
+            let fitted: Vec<(usize, Vec3)> = pts
+                .iter()
+                .map(|&(k, x)| (k, f.transform.apply(x)))
+                .collect();
             for &(k, y) in &fitted {
                 sum[k] = crate::mesh::add(sum[k], y);
                 count[k] += 1;
@@ -381,7 +385,8 @@ pub fn build_template(subjects: &[TemplateSubject], opts: &TemplateOptions) -> R
         let mut mean = vec![[0.0; 3]; names.len()];
         for k in 0..names.len() {
             let l = norm(sum[k]);
-            if !(l > 1e-6 * count[k] as f64) {
+            let defined = l > 1e-6 * count[k] as f64;
+            if !defined {
                 return Err(Error::Algorithm {
                     stage: "template",
                     message: format!(
@@ -514,7 +519,11 @@ pub fn read_cohort(path: &Path) -> Result<Vec<CohortEntry>> {
         let field = |i: usize| rec.get(i).unwrap_or("");
         for (i, what) in [(0, "subject"), (1, "sphere"), (2, "landmarks")] {
             if field(i).is_empty() {
-                return Err(Error::bad_file(path, &element, format!("empty `{what}` cell")));
+                return Err(Error::bad_file(
+                    path,
+                    &element,
+                    format!("empty `{what}` cell"),
+                ));
             }
         }
         if out.iter().any(|e| e.subject == field(0)) {
@@ -538,7 +547,11 @@ pub fn read_cohort(path: &Path) -> Result<Vec<CohortEntry>> {
         });
     }
     if out.is_empty() {
-        return Err(Error::bad_file(path, "rows", "no subjects; expected at least one row"));
+        return Err(Error::bad_file(
+            path,
+            "rows",
+            "no subjects; expected at least one row",
+        ));
     }
     Ok(out)
 }
@@ -617,14 +630,20 @@ mod tests {
         std::fs::remove_dir_all(&dir).unwrap();
     }
 
+    /// Spheres, landmarks, centring weights, planted landmark positions.
+    type Cohort = (Vec<Vec<Vec3>>, Vec<Vec<Landmark>>, Vec<f64>, Vec<Vec3>);
+
     /// A cohort made from one base sphere: each subject is the sphere moved
     /// by its own random Moebius map, with its landmarks jittered by up to
     /// `jitter` degrees around the planted positions.
-    fn cohort(n_subjects: usize, jitter: f64) -> (Vec<Vec<Vec3>>, Vec<Vec<Landmark>>, Vec<f64>, Vec<Vec3>) {
+    fn cohort(n_subjects: usize, jitter: f64) -> Cohort {
         let base = icosphere(3, 1.0);
         let w = base.vertex_areas();
         let planted_vertices = [0usize, 5, 17, 40, 101, 222, 300, 444];
-        let planted: Vec<Vec3> = planted_vertices.iter().map(|&v| base.positions[v]).collect();
+        let planted: Vec<Vec3> = planted_vertices
+            .iter()
+            .map(|&v| base.positions[v])
+            .collect();
         let mut rng = SeededRng::new(31);
         let mut spheres = Vec::new();
         let mut lms = Vec::new();
@@ -643,7 +662,8 @@ mod tests {
                     } else {
                         base.positions[v]
                     };
-                    let (k, _) = super::super::landmarks::nearest_vertex(&base.positions, target).unwrap();
+                    let (k, _) =
+                        super::super::landmarks::nearest_vertex(&base.positions, target).unwrap();
                     Landmark {
                         name: format!("lm{i}"),
                         vertex: k,
@@ -676,7 +696,15 @@ mod tests {
             };
             let t = build_template(&subjects, &opts).unwrap();
             let q: Vec<Vec3> = t.landmarks.iter().map(|l| l.direction()).collect();
-            let f = fit(FitKind::Mobius, &planted, &q, &[1.0; 8], &[], &FitOptions::default()).unwrap();
+            let f = fit(
+                FitKind::Mobius,
+                &planted,
+                &q,
+                &[1.0; 8],
+                &[],
+                &FitOptions::default(),
+            )
+            .unwrap();
             assert!(f.cost < 1e-18, "{kind:?}: {}", f.cost);
             for l in &t.landmarks {
                 assert!(l.spread_degrees.unwrap() < 1e-7, "{kind:?}: {l:?}");
@@ -704,8 +732,12 @@ mod tests {
             let s = l.spread_degrees.unwrap();
             assert!(s < 16.0, "{l:?}");
         }
-        let mean_spread: f64 =
-            t.landmarks.iter().map(|l| l.spread_degrees.unwrap()).sum::<f64>() / 8.0;
+        let mean_spread: f64 = t
+            .landmarks
+            .iter()
+            .map(|l| l.spread_degrees.unwrap())
+            .sum::<f64>()
+            / 8.0;
         assert!(mean_spread > 1.0, "{mean_spread}");
     }
 
@@ -713,7 +745,11 @@ mod tests {
     fn cohort_table_paths_are_relative_to_the_table() {
         let dir = temp_dir("cohort");
         let f = dir.join("cohort.csv");
-        std::fs::write(&f, "subject,sphere,landmarks,surface\nA,a/s.obj,a/l.csv,\nB,/abs/s.obj,b.csv,b/n.obj\n").unwrap();
+        std::fs::write(
+            &f,
+            "subject,sphere,landmarks,surface\nA,a/s.obj,a/l.csv,\nB,/abs/s.obj,b.csv,b/n.obj\n",
+        )
+        .unwrap();
         let c = read_cohort(&f).unwrap();
         assert_eq!(c.len(), 2);
         assert_eq!(c[0].sphere, dir.join("a/s.obj"));
@@ -742,7 +778,9 @@ mod tests {
                 landmarks: &lms[s],
             })
             .collect();
-        let e = build_template(&subjects, &TemplateOptions::default()).unwrap_err().to_string();
+        let e = build_template(&subjects, &TemplateOptions::default())
+            .unwrap_err()
+            .to_string();
         assert!(e.contains("second") && e.contains("out of range"), "{e}");
     }
 }
