@@ -11,6 +11,7 @@
 
 pub mod align;
 pub mod error;
+pub mod inspect;
 pub mod io;
 pub mod mesh;
 pub mod moebius;

@@ -7,6 +7,8 @@ use clap::{Parser, Subcommand};
 use std::process::ExitCode;
 
 mod align;
+mod convert;
+mod inspect;
 
 /// Cortical surfaces of a cohort to one common sphere. Research use only:
 /// not a medical device; results need review by a trained analyst.
@@ -19,6 +21,10 @@ pub struct Cli {
 
 #[derive(Subcommand, Debug)]
 enum Command {
+    /// Report the topology and geometry of a surface mesh and whether it is ready to map.
+    Inspect(inspect::InspectArgs),
+    /// Re-encode a GIFTI file (encoding, byte order), keeping all its content.
+    Convert(convert::ConvertArgs),
     /// Moebius-normalise a mapped sphere: centre it and fit its landmarks to a template.
     Align(align::AlignArgs),
     /// Estimate a landmark template from a cohort of mapped spheres.
@@ -28,9 +34,11 @@ enum Command {
 /// Run the command line and return the exit status.
 pub fn main() -> ExitCode {
     let cli = Cli::parse();
-    let result: horosphere::Result<ExitCode> = match cli.command {
-        Command::Align(args) => align::run_align(&args),
-        Command::Template(args) => align::run_template(&args),
+    let result: horosphere::Result<ExitCode> = match &cli.command {
+        Command::Inspect(args) => inspect::run(args),
+        Command::Convert(args) => convert::run(args),
+        Command::Align(args) => align::run_align(args),
+        Command::Template(args) => align::run_template(args),
     };
     match result {
         Ok(code) => code,

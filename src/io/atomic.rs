@@ -72,7 +72,13 @@ mod tests {
         assert_eq!(fs::read(&dest).unwrap(), b"old");
         let leftovers: Vec<_> = fs::read_dir(&dir)
             .unwrap()
-            .filter(|e| e.as_ref().unwrap().file_name().to_string_lossy().ends_with(".tmp"))
+            .filter(|e| {
+                e.as_ref()
+                    .unwrap()
+                    .file_name()
+                    .to_string_lossy()
+                    .ends_with(".tmp")
+            })
             .collect();
         assert!(leftovers.is_empty());
         fs::remove_dir_all(&dir).unwrap();

@@ -71,13 +71,18 @@ impl Halfedges {
     pub fn from_faces(n_vertices: usize, faces: &[[u32; 3]]) -> Result<Self> {
         let nh = faces.len() * 3;
         if nh >= u32::MAX as usize {
-            return Err(Error::Invalid("too many faces for 32-bit halfedge ids".into()));
+            return Err(Error::Invalid(
+                "too many faces for 32-bit halfedge ids".into(),
+            ));
         }
         let mut tail = vec![0u32; nh];
         for (f, t) in faces.iter().enumerate() {
             for k in 0..3 {
                 if t[k] as usize >= n_vertices {
-                    return Err(Error::Invalid(format!("face {f} has vertex index {} out of range", t[k])));
+                    return Err(Error::Invalid(format!(
+                        "face {f} has vertex index {} out of range",
+                        t[k]
+                    )));
                 }
                 if t[k] == t[(k + 1) % 3] {
                     return Err(Error::Invalid(format!("face {f} repeats vertex {}", t[k])));
@@ -134,10 +139,9 @@ impl Halfedges {
             i = j;
         }
         let mut vertex_half = vec![u32::MAX; n_vertices];
-        for h in 0..nh {
-            let v = tail[h] as usize;
-            if vertex_half[v] == u32::MAX {
-                vertex_half[v] = h as u32;
+        for (h, &v) in tail.iter().enumerate() {
+            if vertex_half[v as usize] == u32::MAX {
+                vertex_half[v as usize] = h as u32;
             }
         }
         if let Some(v) = vertex_half.iter().position(|&h| h == u32::MAX) {
@@ -213,11 +217,18 @@ impl Halfedges {
             count[v as usize] += 1;
         }
         for v in 0..self.n_vertices() as u32 {
-            let n = self.outgoing(v).take(count[v as usize] as usize + 1).count() as u32;
+            let n = self
+                .outgoing(v)
+                .take(count[v as usize] as usize + 1)
+                .count() as u32;
             if n != count[v as usize] {
                 return Err(Error::Invalid(format!(
                     "vertex {v} joins {} separate fans of faces: a non-manifold (bow-tie) vertex",
-                    if n < count[v as usize] { "several" } else { "inconsistent" }
+                    if n < count[v as usize] {
+                        "several"
+                    } else {
+                        "inconsistent"
+                    }
                 )));
             }
         }
@@ -303,23 +314,33 @@ impl Halfedges {
         for h in 0..nh {
             let t = self.twin[h as usize];
             if t >= nh || t == h || self.twin[t as usize] != h {
-                return Err(Error::Invalid(format!("halfedge {h}: twin is not an involution")));
+                return Err(Error::Invalid(format!(
+                    "halfedge {h}: twin is not an involution"
+                )));
             }
             if self.edge[h as usize] != self.edge[t as usize] {
-                return Err(Error::Invalid(format!("halfedge {h}: twin has another edge id")));
+                return Err(Error::Invalid(format!(
+                    "halfedge {h}: twin has another edge id"
+                )));
             }
             if self.tail[t as usize] != self.head(h) {
-                return Err(Error::Invalid(format!("halfedge {h}: twin does not run backwards")));
+                return Err(Error::Invalid(format!(
+                    "halfedge {h}: twin does not run backwards"
+                )));
             }
         }
         for (e, &h) in self.edge_half.iter().enumerate() {
             if self.edge[h as usize] as usize != e {
-                return Err(Error::Invalid(format!("edge {e}: edge_half points elsewhere")));
+                return Err(Error::Invalid(format!(
+                    "edge {e}: edge_half points elsewhere"
+                )));
             }
         }
         for (v, &h) in self.vertex_half.iter().enumerate() {
             if self.tail[h as usize] as usize != v {
-                return Err(Error::Invalid(format!("vertex {v}: vertex_half does not leave it")));
+                return Err(Error::Invalid(format!(
+                    "vertex {v}: vertex_half does not leave it"
+                )));
             }
         }
         Ok(())

@@ -135,10 +135,7 @@ impl TriMesh {
     /// Mean of the vertex positions.
     pub fn centroid(&self) -> Vec3 {
         let n = self.positions.len().max(1) as f64;
-        let s = self
-            .positions
-            .iter()
-            .fold([0.0; 3], |acc, p| add(acc, *p));
+        let s = self.positions.iter().fold([0.0; 3], |acc, p| add(acc, *p));
         scale(s, 1.0 / n)
     }
 

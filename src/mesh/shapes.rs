@@ -1,4 +1,4 @@
-//! Meshes built from formulas: icosahedral spheres and tori.
+//! Meshes built from formulas: icosahedral spheres, tori and a double torus.
 //!
 //! The icosahedral sphere of level `k` has `10 * 4^k + 2` vertices,
 //! `30 * 4^k` edges and `20 * 4^k` faces (Kenner, "Geodesic math and how to
@@ -105,6 +105,45 @@ pub fn torus(major: f64, minor: f64, n_major: usize, n_minor: usize) -> TriMesh 
             faces.push([a, b, c]);
             faces.push([a, c, d]);
         }
+    }
+    TriMesh { positions, faces }
+}
+
+/// Closed genus-2 surface: two copies of [`torus`] side by side along x, each
+/// with the two triangles of one grid cell removed where it faces the other,
+/// joined by a ring of four quads (eight triangles) between the two square
+/// holes. The second torus is the mirror image of the first in the plane
+/// `x = major + 1.5 minor` (its faces reversed so that both stay outward), so
+/// the gap between the tori is `minor` and the ring is a straight prism.
+///
+/// Vertices: the first torus's `n_major * n_minor`, then the second's in the
+/// same order. Euler characteristic `2 (0 - 1) + 0 = -2`: each hole removes
+/// two faces and one edge, the ring adds eight faces and eight edges (Massey,
+/// "A basic course in algebraic topology", 1991: `V - E + F = 2 - 2g`, so
+/// `g = 2`). Needs `n_major >= 3` and `n_minor >= 3`.
+pub fn double_torus(major: f64, minor: f64, n_major: usize, n_minor: usize) -> TriMesh {
+    let a = torus(major, minor, n_major, n_minor);
+    let n = a.n_vertices() as u32;
+    let mirror = 2.0 * major + 3.0 * minor;
+    let mut positions = a.positions.clone();
+    positions.extend(a.positions.iter().map(|p| [mirror - p[0], p[1], p[2]]));
+    // Cell (0, 0) sits at u in [0, du], v in [0, dv]: on the outer equator at
+    // x ~ major + minor, facing +x. Its two triangles are faces 0 and 1.
+    let mut faces: Vec<[u32; 3]> = a.faces[2..].to_vec();
+    faces.extend(a.faces[2..].iter().map(|t| [t[0] + n, t[2] + n, t[1] + n]));
+    // Boundary of the hole in the first torus, in its faces' own direction:
+    // the cell's quad a -> b -> c -> d (see `torus`) is bounded by its faces
+    // traversing a->b, b->c, c->d, d->a; the hole boundary as seen by the
+    // remaining faces is the reverse, d -> c -> b -> a.
+    let id = |i: usize, j: usize| ((i % n_major) * n_minor + (j % n_minor)) as u32;
+    let hole = [id(0, 1), id(1, 1), id(1, 0), id(0, 0)];
+    // Remaining faces traverse hole[k] -> hole[k+1] in torus A; the mirrored
+    // copy traverses hole[k+1] + n -> hole[k] + n. The ring traverses both
+    // the other way: quad hole[k+1] -> hole[k] -> hole[k]+n -> hole[k+1]+n.
+    for k in 0..4 {
+        let (p, q) = (hole[k], hole[(k + 1) % 4]);
+        faces.push([q, p, p + n]);
+        faces.push([q, p + n, q + n]);
     }
     TriMesh { positions, faces }
 }

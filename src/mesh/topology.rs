@@ -254,7 +254,8 @@ mod tests {
         let b = icosphere(0, 1.0);
         let off = b.n_vertices() as u32;
         let mut m = b.clone();
-        m.positions.extend(a.positions.iter().map(|p| [p[0] + 5.0, p[1], p[2]]));
+        m.positions
+            .extend(a.positions.iter().map(|p| [p[0] + 5.0, p[1], p[2]]));
         m.faces
             .extend(a.faces.iter().map(|t| [t[0] + off, t[1] + off, t[2] + off]));
         let (comp, n) = face_components(&m);
