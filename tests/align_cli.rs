@@ -141,6 +141,50 @@ fn align_undoes_a_moebius_map_and_reports_it() {
 }
 
 #[test]
+fn gifti_spheres_in_and_out() {
+    // GIFTI stores coordinates as float32 ("GIFTI Surface Data Format
+    // Version 1.0", 2011): the alignment must still undo the map to float32
+    // precision (about 1e-5 mm on a 100 mm sphere, times the map's stretch).
+    let dir = temp_dir("gifti");
+    let m = Moebius::random(13, 1.0);
+    let (sp, np, lp) = subject(&dir, "g", &m);
+    let tp = write_template(&dir);
+    let sg = dir.join("sub-x_hemi-L_sphere.surf.gii");
+    let ng = dir.join("sub-x_hemi-L_white.surf.gii");
+    horosphere::io::write_mesh(&sg, &horosphere::io::read_mesh(&sp).unwrap()).unwrap();
+    horosphere::io::write_mesh(&ng, &horosphere::io::read_mesh(&np).unwrap()).unwrap();
+    let out = dir.join("sub-x_hemi-L_space-common_sphere.surf.gii");
+    let o = run(&[
+        "align",
+        s(&sg),
+        "--landmarks",
+        s(&lp),
+        "--template",
+        s(&tp),
+        "-o",
+        s(&out),
+        "--surface",
+        s(&ng),
+        "--fit",
+        "rotation",
+    ]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let stdout = String::from_utf8_lossy(&o.stdout);
+    assert!(stdout.contains("6 landmarks"), "{stdout}");
+    let aligned = horosphere::io::read_mesh(&out).unwrap();
+    let base = icosphere(3, 100.0);
+    assert_eq!(aligned.faces, base.faces);
+    let worst = aligned
+        .positions
+        .iter()
+        .zip(&base.positions)
+        .map(|(a, b)| dist(*a, *b))
+        .fold(0.0, f64::max);
+    assert!(worst < 1e-3, "{worst}");
+    std::fs::remove_dir_all(&dir).unwrap();
+}
+
+#[test]
 fn bad_input_gives_clear_errors_and_no_output() {
     let dir = temp_dir("bad");
     let m = Moebius::random(12, 1.0);
