@@ -1,5 +1,6 @@
 //! `horosphere align` and `horosphere template`: Moebius normalisation of
-//! mapped spheres (library: [`horosphere::align`]).
+//! mapped spheres (library: [`horosphere::align`]; file formats and the
+//! report layout: docs/align.md).
 //!
 //! * `horosphere align SPHERE --landmarks L.csv --template T.toml -o ALIGNED
 //!   [--fit rotation|mobius] [--center area|uniform|none] [--surface NATIVE]
@@ -95,7 +96,7 @@ pub struct AlignArgs {
     /// Native surface the sphere was mapped from (same vertices): area weights and landmark snapping.
     #[arg(long, value_name = "FILE")]
     pub surface: Option<PathBuf>,
-    /// Write a JSON report (residuals, RMS, the transformation) here.
+    /// Write a JSON report (residuals, RMS, the transformation) here (layout: docs/align.md).
     #[arg(long, value_name = "JSON")]
     pub report: Option<PathBuf>,
     /// Raise the warning flag when a landmark residual exceeds this many degrees.
