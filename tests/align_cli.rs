@@ -37,7 +37,13 @@ fn s(p: &Path) -> &str {
 /// Native surface (icosphere, radius 100), the sphere moved by `m`, the
 /// landmark CSV and a template of the unmoved landmark positions.
 fn subject(dir: &Path, tag: &str, m: &Moebius) -> (PathBuf, PathBuf, PathBuf) {
-    let base = icosphere(3, 1.0);
+    subject_at(dir, tag, m, 3)
+}
+
+/// As [`subject`] on the icosphere of level `level` >= 3 (its first 642
+/// vertices are those of level 3, so the landmarks stay where they are).
+fn subject_at(dir: &Path, tag: &str, m: &Moebius, level: u32) -> (PathBuf, PathBuf, PathBuf) {
+    let base = icosphere(level, 1.0);
     let native = TriMesh {
         positions: base.positions.iter().map(|p| scale(*p, 100.0)).collect(),
         faces: base.faces.clone(),
@@ -181,6 +187,45 @@ fn gifti_spheres_in_and_out() {
         .map(|(a, b)| dist(*a, *b))
         .fold(0.0, f64::max);
     assert!(worst < 1e-3, "{worst}");
+    std::fs::remove_dir_all(&dir).unwrap();
+}
+
+#[test]
+fn output_does_not_depend_on_the_thread_count() {
+    // Project rule: byte-identical output whatever the thread count. Level 5
+    // (10,242 vertices) spans several of the fixed summation chunks.
+    let dir = temp_dir("threads");
+    let (sp, np, lp) = subject_at(&dir, "t", &Moebius::random(14, 2.0), 5);
+    let tp = write_template(&dir);
+    let out = dir.join("aligned.surf.gii");
+    let rep = dir.join("align.json");
+    let mut results = Vec::new();
+    for threads in ["1", "3"] {
+        let o = bin()
+            .env("RAYON_NUM_THREADS", threads)
+            .args([
+                "align",
+                s(&sp),
+                "--landmarks",
+                s(&lp),
+                "--template",
+                s(&tp),
+                "-o",
+                s(&out),
+                "--surface",
+                s(&np),
+                "--report",
+                s(&rep),
+            ])
+            .output()
+            .unwrap();
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        results.push((std::fs::read(&out).unwrap(), std::fs::read(&rep).unwrap()));
+    }
+    assert!(
+        results[0] == results[1],
+        "outputs differ between 1 and 3 threads"
+    );
     std::fs::remove_dir_all(&dir).unwrap();
 }
 
