@@ -122,48 +122,46 @@ pub fn centre(points: &[Vec3], weights: &[f64], opts: &CentringOptions) -> Resul
     loop {
         map_into(&m, points, &mut cur);
         let (c, s, _) = moments(&cur, weights);
-        // Hess F = W I - S at the centre; it is singular exactly when all
-        // weight sits on one line through the centre (then boosts along that
-        // line keep the centroid and the centring is not unique).
+        // Hess F = W I - S at the centre. At the solution it is singular
+        // exactly when all weight sits on one line through the centre (then
+        // boosts along that line keep the centroid: the centring is not
+        // unique). Far from the solution it may be nearly singular because
+        // the points crowd together; then a gradient step is taken instead.
         let h = nalgebra::Matrix3::from_fn(|a, b| (if a == b { wsum } else { 0.0 }) - s[a][b]);
-        if h.symmetric_eigenvalues().min() <= 1e-12 * wsum {
-            return Err(Error::Algorithm {
-                stage: "centring",
-                message: "the centring is not unique: all weight sits on one line through the centre (two antipodal clusters)".into(),
-            });
-        }
         let cn = norm(c) / wsum;
-        if cn <= opts.tolerance {
-            break;
-        }
         // Rounding floor: tiny Newton steps that no longer halve the
         // centroid (points crowded by a boost of large rapidity are known
         // only to about e^{2 rapidity} ulp after un-crowding).
         let stalled = cn >= 0.5 * previous && cn < 1e-6;
         previous = cn;
-        if stalled {
+        if cn <= opts.tolerance || stalled {
+            if h.symmetric_eigenvalues().min() <= 1e-9 * wsum {
+                return Err(Error::Algorithm {
+                    stage: "centring",
+                    message: "the centring is not unique: all weight sits on one line through the centre (two antipodal clusters)".into(),
+                });
+            }
             break;
         }
         if iterations >= opts.max_iterations {
             return Err(Error::Algorithm {
                 stage: "centring",
                 message: format!(
-                    "weighted centroid norm {cn:e} after {iterations} Newton steps, tolerance {:e}",
+                    "weighted centroid norm {cn:e} after {iterations} Newton steps, tolerance {:e} (a sphere whose vertices crowd into a tiny cap holds too few digits to be centred)",
                     opts.tolerance
                 ),
             });
         }
         iterations += 1;
-        // Newton direction d solves Hess d = c.
-        let d = h
-            .cholesky()
-            .map(|ch| ch.solve(&nalgebra::Vector3::new(c[0], c[1], c[2])))
-            .ok_or_else(|| Error::Algorithm {
-                stage: "centring",
-                message: "the Hessian is singular: all weight sits on one line through the centre"
-                    .into(),
-            })?;
-        let d = [d[0], d[1], d[2]];
+        // Newton direction d solves Hess d = c (gradient direction c / W
+        // when the Hessian is numerically singular).
+        let d = match h.cholesky() {
+            Some(ch) => {
+                let d = ch.solve(&nalgebra::Vector3::new(c[0], c[1], c[2]));
+                [d[0], d[1], d[2]]
+            }
+            None => scale(c, 1.0 / wsum),
+        };
         let r = norm(d);
         if !(r.is_finite() && r > 0.0) {
             return Err(Error::Algorithm {
