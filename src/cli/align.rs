@@ -175,7 +175,7 @@ fn load_subject(
                 .as_ref()
                 .ok_or_else(|| {
                     Error::Invalid(format!(
-                        "--center area weighs the vertices of {} by the native surface's vertex areas: give --surface NATIVE (or a `surface` column), or choose --center uniform or none",
+                        "--center area weighs the vertices of {} by the native surface's vertex areas: give the native surface (--surface NATIVE, or the `surface` column of a cohort table), or choose --center uniform or none",
                         sphere.display()
                     ))
                 })?
