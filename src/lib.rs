@@ -15,6 +15,7 @@ pub mod inspect;
 pub mod io;
 pub mod mesh;
 pub mod moebius;
+pub mod repair;
 
 pub use error::{Error, Result};
 pub use mesh::TriMesh;

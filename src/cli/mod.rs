@@ -9,6 +9,7 @@ use std::process::ExitCode;
 mod align;
 mod convert;
 mod inspect;
+mod repair;
 
 /// Cortical surfaces of a cohort to one common sphere. Research use only:
 /// not a medical device; results need review by a trained analyst.
@@ -25,6 +26,9 @@ enum Command {
     Inspect(inspect::InspectArgs),
     /// Re-encode a GIFTI file (encoding, byte order), keeping all its content.
     Convert(convert::ConvertArgs),
+    /// Repair a surface: merge duplicate vertices, drop degenerate faces and
+    /// stray pieces, orient it consistently and outward, fill its holes.
+    Repair(repair::RepairArgs),
     /// Moebius-normalise a mapped sphere: centre it and fit its landmarks to a template.
     Align(align::AlignArgs),
     /// Estimate a landmark template from a cohort of mapped spheres.
@@ -37,6 +41,7 @@ pub fn main() -> ExitCode {
     let result: horosphere::Result<ExitCode> = match &cli.command {
         Command::Inspect(args) => inspect::run(args),
         Command::Convert(args) => convert::run(args),
+        Command::Repair(args) => repair::run(args),
         Command::Align(args) => align::run_align(args),
         Command::Template(args) => align::run_template(args),
     };
