@@ -16,6 +16,7 @@ pub mod io;
 pub mod mesh;
 pub mod moebius;
 pub mod repair;
+pub mod synth;
 
 pub use error::{Error, Result};
 pub use mesh::TriMesh;

@@ -8,6 +8,7 @@ use std::process::ExitCode;
 
 mod align;
 mod convert;
+mod demo;
 mod inspect;
 mod repair;
 
@@ -26,6 +27,8 @@ enum Command {
     Inspect(inspect::InspectArgs),
     /// Re-encode a GIFTI file (encoding, byte order), keeping all its content.
     Convert(convert::ConvertArgs),
+    /// Write a synthetic study (folded surfaces, maps, landmarks, ground truth) as BIDS derivatives.
+    Demo(demo::DemoArgs),
     /// Repair a surface: merge duplicate vertices, drop degenerate faces and
     /// stray pieces, orient it consistently and outward, fill its holes.
     Repair(repair::RepairArgs),
@@ -41,6 +44,7 @@ pub fn main() -> ExitCode {
     let result: horosphere::Result<ExitCode> = match &cli.command {
         Command::Inspect(args) => inspect::run(args),
         Command::Convert(args) => convert::run(args),
+        Command::Demo(args) => demo::run(args),
         Command::Repair(args) => repair::run(args),
         Command::Align(args) => align::run_align(args),
         Command::Template(args) => align::run_template(args),
