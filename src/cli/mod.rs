@@ -6,6 +6,7 @@
 use clap::{Parser, Subcommand};
 use std::process::ExitCode;
 
+mod align;
 mod convert;
 mod demo;
 mod inspect;
@@ -34,6 +35,10 @@ enum Command {
     Repair(repair::RepairArgs),
     /// Map a closed genus-0 surface to the sphere by exact discrete conformal uniformization.
     Map(map::MapArgs),
+    /// Moebius-normalise a mapped sphere: centre it and fit its landmarks to a template.
+    Align(align::AlignArgs),
+    /// Estimate a landmark template from a cohort of mapped spheres.
+    Template(align::TemplateArgs),
 }
 
 /// Run the command line and return the exit status.
@@ -45,6 +50,8 @@ pub fn main() -> ExitCode {
         Command::Demo(args) => demo::run(args),
         Command::Repair(args) => repair::run(args),
         Command::Map(args) => map::run(args),
+        Command::Align(args) => align::run_align(args),
+        Command::Template(args) => align::run_template(args),
     };
     match result {
         Ok(code) => code,
