@@ -13,6 +13,7 @@ pub mod error;
 pub mod inspect;
 pub mod io;
 pub mod mesh;
+pub mod resample;
 
 pub use error::{Error, Result};
 pub use mesh::TriMesh;
