@@ -8,6 +8,9 @@ use std::process::ExitCode;
 
 mod convert;
 mod inspect;
+mod matrix;
+mod resample;
+mod sphere;
 
 /// Cortical surfaces of a cohort to one common sphere. Research use only:
 /// not a medical device; results need review by a trained analyst.
@@ -24,6 +27,12 @@ enum Command {
     Inspect(inspect::InspectArgs),
     /// Re-encode a GIFTI file (encoding, byte order), keeping all its content.
     Convert(convert::ConvertArgs),
+    /// Resample per-vertex maps from a subject sphere to a common target sphere.
+    Resample(resample::ResampleArgs),
+    /// Write a built-in target sphere (icosphere:K) as a surface file.
+    Sphere(sphere::SphereArgs),
+    /// Stack resampled maps of a cohort into one GIFTI (and CSV) matrix.
+    Matrix(matrix::MatrixArgs),
 }
 
 /// Run the command line and return the exit status.
@@ -32,6 +41,9 @@ pub fn main() -> ExitCode {
     let result: horosphere::Result<ExitCode> = match &cli.command {
         Command::Inspect(args) => inspect::run(args),
         Command::Convert(args) => convert::run(args),
+        Command::Resample(args) => resample::run(args),
+        Command::Sphere(args) => sphere::run(args),
+        Command::Matrix(args) => matrix::run(args),
     };
     match result {
         Ok(code) => code,

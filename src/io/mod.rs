@@ -337,7 +337,13 @@ mod tests {
         let mut f = Vec::new();
         push_fan(&mut f, &[4, 5, 6, 7, 8]);
         assert_eq!(f, vec![[4, 5, 6], [4, 6, 7], [4, 7, 8]]);
-        for x in [0.1, -1e-300, 1e300, 123.456_789_012_345_68, f64::MIN_POSITIVE] {
+        for x in [
+            0.1,
+            -1e-300,
+            1e300,
+            123.456_789_012_345_68,
+            f64::MIN_POSITIVE,
+        ] {
             assert_eq!(
                 fmt_coordinate(x).parse::<f64>().unwrap().to_bits(),
                 x.to_bits()

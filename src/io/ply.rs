@@ -201,12 +201,14 @@ fn parse_header(path: &Path, bytes: &[u8]) -> Result<Header> {
                 })?;
                 let (c, i) = match (Scalar::parse(count), Scalar::parse(item)) {
                     (Some(c), Some(i)) => (c, i),
-                    _ => return Err(header_err(
-                        path,
-                        format!(
+                    _ => {
+                        return Err(header_err(
+                            path,
+                            format!(
                             "line {number}: list types `{count} {item}`; expected PLY scalar types"
                         ),
-                    )),
+                        ))
+                    }
                 };
                 let corners =
                     el.name == "face" && (*name == "vertex_indices" || *name == "vertex_index");

@@ -36,6 +36,7 @@
 //! the subject's mesh spacing (tested with spherical harmonics).
 
 pub mod hull;
+pub mod files;
 pub mod locate;
 pub mod matrix;
 pub mod predicates;
