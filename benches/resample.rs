@@ -17,7 +17,9 @@ use std::time::Instant;
 fn subject(n: usize) -> Vec<[f64; 3]> {
     let mut s = 0x1234_5678_9abc_def0u64;
     let mut rnd = || {
-        s = s.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+        s = s
+            .wrapping_mul(6364136223846793005)
+            .wrapping_add(1442695040888963407);
         (s >> 11) as f64 / (1u64 << 53) as f64 - 0.5
     };
     let ga = std::f64::consts::PI * (3.0 - 5f64.sqrt());
@@ -27,11 +29,19 @@ fn subject(n: usize) -> Vec<[f64; 3]> {
             let z = 1.0 - (2.0 * i as f64 + 1.0) / n as f64;
             let r = (1.0 - z * z).sqrt();
             let t = ga * i as f64;
-            let p = [r * t.cos() + 0.3 * h * rnd(), r * t.sin() + 0.3 * h * rnd(), z + 0.3 * h * rnd()];
+            let p = [
+                r * t.cos() + 0.3 * h * rnd(),
+                r * t.sin() + 0.3 * h * rnd(),
+                z + 0.3 * h * rnd(),
+            ];
             let l = (p[0] * p[0] + p[1] * p[1] + p[2] * p[2]).sqrt();
             // Rotation by 0.5 rad about x.
             let (c, sn) = (0.5f64.cos(), 0.5f64.sin());
-            let q = [p[0] / l, c * p[1] / l - sn * p[2] / l, sn * p[1] / l + c * p[2] / l];
+            let q = [
+                p[0] / l,
+                c * p[1] / l - sn * p[2] / l,
+                sn * p[1] / l + c * p[2] / l,
+            ];
             [100.0 * q[0], 100.0 * q[1], 100.0 * q[2]]
         })
         .collect()
@@ -63,21 +73,33 @@ fn main() -> horosphere::Result<()> {
     let maps: Vec<InputMap> = (0..5)
         .map(|k| InputMap {
             name: format!("map{k}"),
-            values: MapValues::Continuous(pts.iter().map(|p| p[0] * (k as f64 + 1.0) + p[2]).collect()),
+            values: MapValues::Continuous(
+                pts.iter().map(|p| p[0] * (k as f64 + 1.0) + p[2]).collect(),
+            ),
         })
         .collect();
-    let (t_one, r1) = best(3, || resample_located(&locator, &location, &maps[..1], None, None));
+    let (t_one, r1) = best(3, || {
+        resample_located(&locator, &location, &maps[..1], None, None)
+    });
     r1?;
-    let (t_five, r5) = best(3, || resample_located(&locator, &location, &maps, None, None));
+    let (t_five, r5) = best(3, || {
+        resample_located(&locator, &location, &maps, None, None)
+    });
     r5?;
     let (t_l8, l8) = best(1, || icosphere(8, 100.0));
-    println!("resample benchmark ({} threads)", rayon::current_num_threads());
+    println!(
+        "resample benchmark ({} threads)",
+        rayon::current_num_threads()
+    );
     println!("subject vertices            {n}");
     println!("hull triangles              {}", locator.hull().faces.len());
     println!("target vertices (level 7)   {}", target.n_vertices());
     println!("build target level 7        {:.3} s", t_target);
     println!("sphere check + hull + grid  {:.3} s", t_loc);
-    println!("locate 163,842 targets      {:.3} s (fallback walks: {})", t_locate, location.n_fallback);
+    println!(
+        "locate 163,842 targets      {:.3} s (fallback walks: {})",
+        t_locate, location.n_fallback
+    );
     println!("interpolate 1 map           {:.4} s", t_one);
     println!("interpolate 5 maps          {:.4} s", t_five);
     println!(
@@ -85,10 +107,19 @@ fn main() -> horosphere::Result<()> {
         t_loc + t_locate + t_one,
         (t_five - t_one) / 4.0
     );
-    println!("build target level 8        {:.3} s ({} vertices)", t_l8, l8.n_vertices());
+    println!(
+        "build target level 8        {:.3} s ({} vertices)",
+        t_l8,
+        l8.n_vertices()
+    );
     let x: Vec<f64> = target.positions.iter().map(|p| p[0]).collect();
-    let (t_sm, sm) = best(1, || smooth_maps(&target, &[x.clone()], None, &SmoothOptions::new(10.0)));
+    let (t_sm, sm) = best(1, || {
+        smooth_maps(&target, &[x.clone()], None, &SmoothOptions::new(10.0))
+    });
     sm?;
-    println!("smooth 1 map, 163,842 vertices, FWHM 10 mm, 32 steps  {:.3} s", t_sm);
+    println!(
+        "smooth 1 map, 163,842 vertices, FWHM 10 mm, 100 steps  {:.3} s",
+        t_sm
+    );
     Ok(())
 }

@@ -45,7 +45,11 @@ pub fn run(args: &MatrixArgs) -> Result<ExitCode> {
     let mut cols = Vec::with_capacity(args.maps.len());
     for (k, p) in args.maps.iter().enumerate() {
         let s = gifti::read_shape(p)?;
-        let subject = args.subject.get(k).cloned().unwrap_or_else(|| subject_label(p));
+        let subject = args
+            .subject
+            .get(k)
+            .cloned()
+            .unwrap_or_else(|| subject_label(p));
         cols.push(CohortColumn {
             subject,
             values: s.values,

@@ -91,10 +91,18 @@ pub fn run(args: &ResampleArgs) -> Result<ExitCode> {
         )));
     }
     let smoothing = match (args.fwhm, &args.surface) {
-        (Some(f), Some(s)) => Some((SmoothOptions { fwhm_mm: f, steps: args.steps }, s.clone())),
+        (Some(f), Some(s)) => Some((
+            SmoothOptions {
+                fwhm_mm: f,
+                steps: args.steps,
+            },
+            s.clone(),
+        )),
         (None, None) => None,
         (Some(_), None) => {
-            return Err(Error::Invalid("--fwhm needs --surface (the native surface to smooth on)".into()))
+            return Err(Error::Invalid(
+                "--fwhm needs --surface (the native surface to smooth on)".into(),
+            ))
         }
         (None, Some(_)) => return Err(Error::Invalid("--surface is used only with --fwhm".into())),
     };
@@ -138,7 +146,10 @@ pub fn run(args: &ResampleArgs) -> Result<ExitCode> {
             return Err(Error::bad_file(
                 surface,
                 "vertices",
-                format!("{} vertices; expected {n} like the sphere", native.n_vertices()),
+                format!(
+                    "{} vertices; expected {n} like the sphere",
+                    native.n_vertices()
+                ),
             ));
         }
         let mut cont: Vec<Vec<f64>> = Vec::new();
@@ -200,7 +211,10 @@ pub fn run(args: &ResampleArgs) -> Result<ExitCode> {
             report.n_duplicate_vertices,
             report.n_interior_vertices
         );
-        println!("target {}: {} vertices", args.target, report.n_target_vertices);
+        println!(
+            "target {}: {} vertices",
+            args.target, report.n_target_vertices
+        );
         if let Some(s) = &smooth_report {
             println!(
                 "smoothed: FWHM {} mm (t = {:.4} mm^2, {} implicit steps)",

@@ -20,9 +20,10 @@ use std::path::Path;
 /// array, else the first shape (or float) array as continuous values.
 pub fn read_map(path: &Path) -> Result<InputMap> {
     let g = gifti::read(path)?;
-    let name = path
-        .file_name()
-        .map_or_else(|| path.display().to_string(), |n| n.to_string_lossy().into_owned());
+    let name = path.file_name().map_or_else(
+        || path.display().to_string(),
+        |n| n.to_string_lossy().into_owned(),
+    );
     let values = if g.arrays.iter().any(|a| a.intent == Intent::Label) {
         let l = g.to_labels(path)?;
         MapValues::Labels {
@@ -48,7 +49,11 @@ pub fn read_mask(path: &Path, keys: Option<&[i32]>, n: usize) -> Result<Vec<bool
         .enumerate()
         .find(|(_, a)| !matches!(a.intent, Intent::PointSet | Intent::Triangle))
         .ok_or_else(|| {
-            Error::bad_file(path, "file", "no per-vertex array; expected a mask with one value per vertex")
+            Error::bad_file(
+                path,
+                "file",
+                "no per-vertex array; expected a mask with one value per vertex",
+            )
         })?;
     let el = gifti::array_element(i, &a.intent);
     if !a.is_column() || a.rows() != n {
@@ -129,9 +134,10 @@ pub fn resampled_gifti(map: &ResampledMap, method: Method, target: &str, source:
 /// `sub-01_hemi-L_thickness.shape.gii` becomes
 /// `sub-01_hemi-L_space-icosphere6_thickness.shape.gii`.
 pub fn output_name(input: &Path, space: &str) -> String {
-    let name = input
-        .file_name()
-        .map_or_else(|| "map.shape.gii".to_string(), |n| n.to_string_lossy().into_owned());
+    let name = input.file_name().map_or_else(
+        || "map.shape.gii".to_string(),
+        |n| n.to_string_lossy().into_owned(),
+    );
     let (stem, ext) = match name.find('.') {
         Some(i) => (&name[..i], &name[i..]),
         None => (name.as_str(), ""),
@@ -174,10 +180,16 @@ mod tests {
             "sub-01_hemi-L_space-icosphere6_thickness.shape.gii"
         );
         assert_eq!(
-            output_name(Path::new("sub-01_ses-2_hemi-R_space-native_desc-sm_depth.func.gii"), "x"),
+            output_name(
+                Path::new("sub-01_ses-2_hemi-R_space-native_desc-sm_depth.func.gii"),
+                "x"
+            ),
             "sub-01_ses-2_hemi-R_space-x_desc-sm_depth.func.gii"
         );
-        assert_eq!(output_name(Path::new("thick.shape.gii"), "x"), "space-x_thick.shape.gii");
+        assert_eq!(
+            output_name(Path::new("thick.shape.gii"), "x"),
+            "space-x_thick.shape.gii"
+        );
         assert_eq!(subject_label(p), "sub-01");
         assert_eq!(subject_label(Path::new("alpha.shape.gii")), "alpha");
     }

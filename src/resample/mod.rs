@@ -35,8 +35,8 @@
 //! Numer. Anal. 35 (1998) 1191-1200), so the error falls with the square of
 //! the subject's mesh spacing (tested with spherical harmonics).
 
-pub mod hull;
 pub mod files;
+pub mod hull;
 pub mod locate;
 pub mod matrix;
 pub mod predicates;
