@@ -114,7 +114,12 @@ fn main() -> horosphere::Result<()> {
     );
     let x: Vec<f64> = target.positions.iter().map(|p| p[0]).collect();
     let (t_sm, sm) = best(1, || {
-        smooth_maps(&target, &[x.clone()], None, &SmoothOptions::new(10.0))
+        smooth_maps(
+            &target,
+            std::slice::from_ref(&x),
+            None,
+            &SmoothOptions::new(10.0),
+        )
     });
     sm?;
     println!(

@@ -182,7 +182,8 @@ fn derivative_bounds(l: u32, m: i32) -> (f64, f64) {
         let d1 = cross(*u, e);
         let d1 = [d1[0] / norm(d1), d1[1] / norm(d1), d1[2] / norm(d1)];
         let d2 = cross(*u, d1);
-        for (a, b) in [(1.0, 0.0), (0.0, 1.0), (0.7071, 0.7071), (0.7071, -0.7071)] {
+        let r = std::f64::consts::FRAC_1_SQRT_2;
+        for (a, b) in [(1.0, 0.0), (0.0, 1.0), (r, r), (r, -r)] {
             let d = [
                 a * d1[0] + b * d2[0],
                 a * d1[1] + b * d2[1],
@@ -207,16 +208,14 @@ fn derivative_bounds(l: u32, m: i32) -> (f64, f64) {
     (m1, m2)
 }
 
+/// A reference row: target point, exact value, resampled value, bound.
+type Row = (Vec3, f64, f64, f64);
+
 const HARMONICS: [(u32, i32); 6] = [(1, 0), (1, 1), (2, -1), (3, 2), (4, -3), (4, 4)];
 
 /// Max error, max of error / bound, over the target vertices, for one
 /// subject sphere; and rows for the reference file.
-fn harmonic_errors(
-    subject: &TriMesh,
-    target: &TriMesh,
-    l: u32,
-    m: i32,
-) -> (f64, f64, Vec<(Vec3, f64, f64, f64)>) {
+fn harmonic_errors(subject: &TriMesh, target: &TriMesh, l: u32, m: i32) -> (f64, f64, Vec<Row>) {
     let locator = Locator::new(&subject.positions, None, 1e-9).unwrap();
     let location = locator.locate(&target.positions).unwrap();
     assert_eq!(location.n_fallback, 0);
@@ -576,8 +575,8 @@ fn masked_vertices_never_blend_and_nan_is_masked_and_counted() {
     };
     assert_eq!(rep.maps[1].missing_key, Some(0));
     assert_eq!(table.get(0).map(|l| l.name.as_str()), Some("missing"));
-    for k in 0..keys.len() {
-        assert_eq!(keys[k] == 0, out[1].mask[k]);
+    for (k, key) in keys.iter().enumerate() {
+        assert_eq!(*key == 0, out[1].mask[k]);
     }
     // NaN and the cap are the only missing sources: without them, nothing
     // is missing.

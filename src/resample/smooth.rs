@@ -128,7 +128,7 @@ fn assemble(mesh: &TriMesh, active: &[bool]) -> (Vec<(u32, u32, f64)>, Vec<f64>)
             mesh.positions[f[2] as usize],
         ];
         let twice_area = norm(cross(sub(p[1], p[0]), sub(p[2], p[0])));
-        if !(twice_area > 0.0) {
+        if twice_area.is_nan() || twice_area <= 0.0 {
             continue;
         }
         for &v in f {
@@ -401,7 +401,13 @@ mod tests {
         assert!(out[2].iter().all(|&v| (v - 2.5).abs() < 1e-12));
         // The area-weighted mean is kept (here of a map with a non-zero mean).
         let x: Vec<f64> = y1.iter().zip(&y2).map(|(a, b)| 3.0 + a + b * b).collect();
-        let (o, _) = smooth_maps(&m, &[x.clone()], None, &SmoothOptions::new(15.0)).unwrap();
+        let (o, _) = smooth_maps(
+            &m,
+            std::slice::from_ref(&x),
+            None,
+            &SmoothOptions::new(15.0),
+        )
+        .unwrap();
         let total: f64 = mass.iter().sum();
         let mean = |u: &[f64]| u.iter().zip(&mass).map(|(a, b)| a * b).sum::<f64>() / total;
         assert!(
@@ -417,7 +423,7 @@ mod tests {
     fn bad_options() {
         let m = icosphere(1, 1.0);
         let x = vec![0.0; m.n_vertices()];
-        assert!(smooth_maps(&m, &[x.clone()], None, &SmoothOptions::new(0.0)).is_err());
+        assert!(smooth_maps(&m, std::slice::from_ref(&x), None, &SmoothOptions::new(0.0)).is_err());
         assert!(smooth_maps(&m, &[x[1..].to_vec()], None, &SmoothOptions::new(1.0)).is_err());
         let opts = SmoothOptions {
             fwhm_mm: 1.0,

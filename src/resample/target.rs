@@ -157,7 +157,7 @@ pub fn check_sphere(points: &[Vec3], tolerance: f64) -> Result<SphereFit> {
         .enumerate()
         .map(|(i, &p)| (i, (norm(p) - radius).abs()))
         .fold((0, 0.0), |acc, x| if x.1 > acc.1 { x } else { acc });
-    if !(radius > 0.0) {
+    if radius.is_nan() || radius <= 0.0 {
         return Err(Error::Invalid(
             "all points at the origin; expected a sphere".into(),
         ));
