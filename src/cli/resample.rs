@@ -49,6 +49,14 @@ pub struct ResampleArgs {
     /// Implicit steps of the heat-kernel smoothing.
     #[arg(long, value_name = "N", default_value_t = DEFAULT_STEPS)]
     pub steps: usize,
+    /// Smooth the resampled continuous maps on the target sphere with a heat
+    /// kernel of this FWHM (mm); missing target vertices are cut out.
+    #[arg(long, value_name = "MM")]
+    pub target_fwhm: Option<f64>,
+    /// A surface with the sphere's vertices whose triangles are its convex
+    /// hull (e.g. from the mapper); default: the hull is computed.
+    #[arg(long, value_name = "HULL")]
+    pub hull: Option<PathBuf>,
     /// Mask file over the subject's vertices: non-zero = masked.
     #[arg(long, value_name = "MASK")]
     pub mask: Option<PathBuf>,
@@ -176,10 +184,55 @@ pub fn run(args: &ResampleArgs) -> Result<ExitCode> {
     // Resampling.
     check_sphere(&target_mesh.positions, args.sphere_tolerance)
         .map_err(|e| e.in_file(Path::new(&args.target), "vertices"))?;
-    let locator = Locator::new(&sphere.positions, None, args.sphere_tolerance)
-        .map_err(|e| e.in_file(&args.sphere, "vertices"))?;
+    let hull_faces = match &args.hull {
+        Some(p) => {
+            let h = horosphere::io::read_mesh(p)?;
+            if h.n_vertices() != n {
+                return Err(Error::bad_file(
+                    p,
+                    "vertices",
+                    format!("{} vertices; expected {n} like the sphere", h.n_vertices()),
+                ));
+            }
+            Some((h.faces, p))
+        }
+        None => None,
+    };
+    let locator = match &hull_faces {
+        Some((faces, p)) => Locator::new(&sphere.positions, Some(faces), args.sphere_tolerance)
+            .map_err(|e| e.in_file(p, "triangles"))?,
+        None => Locator::new(&sphere.positions, None, args.sphere_tolerance)
+            .map_err(|e| e.in_file(&args.sphere, "vertices"))?,
+    };
     let location = locator.locate(&target_mesh.positions)?;
-    let (out, report) = resample_located(&locator, &location, &maps, mask.as_deref(), method)?;
+    let (mut out, report) = resample_located(&locator, &location, &maps, mask.as_deref(), method)?;
+
+    // Optional smoothing on the target sphere (missing vertices are NaN
+    // and so cut out of their own map).
+    let mut target_smooth_report = None;
+    if let Some(f) = args.target_fwhm {
+        let idx: Vec<usize> = (0..out.len())
+            .filter(|&k| matches!(out[k].values, MapValues::Continuous(_)))
+            .collect();
+        let cont: Vec<Vec<f64>> = idx
+            .iter()
+            .filter_map(|&k| match &out[k].values {
+                MapValues::Continuous(v) => Some(v.clone()),
+                MapValues::Labels { .. } => None,
+            })
+            .collect();
+        let opts = SmoothOptions {
+            fwhm_mm: f,
+            steps: args.steps,
+        };
+        let (sm, rep) = smooth_maps(&target_mesh, &cont, None, &opts)?;
+        for (k, v) in idx.into_iter().zip(sm) {
+            if let Some(m) = out.get_mut(k) {
+                m.values = MapValues::Continuous(v);
+            }
+        }
+        target_smooth_report = Some(rep);
+    }
 
     // Outputs.
     let mut written = Vec::with_capacity(out.len());
@@ -198,6 +251,7 @@ pub fn run(args: &ResampleArgs) -> Result<ExitCode> {
             "target": args.target,
             "resample": report,
             "smoothing": smooth_report,
+            "target_smoothing": target_smooth_report,
             "outputs": written.iter().map(|p| p.display().to_string()).collect::<Vec<_>>(),
         });
         let text = serde_json::to_string_pretty(&v)
@@ -219,6 +273,12 @@ pub fn run(args: &ResampleArgs) -> Result<ExitCode> {
             println!(
                 "smoothed: FWHM {} mm (t = {:.4} mm^2, {} implicit steps)",
                 s.fwhm_mm, s.time, s.steps
+            );
+        }
+        if let Some(s) = &target_smooth_report {
+            println!(
+                "smoothed on the target: FWHM {} mm ({} implicit steps)",
+                s.fwhm_mm, s.steps
             );
         }
         for (r, d) in report.maps.iter().zip(&written) {
