@@ -923,6 +923,22 @@ fn commands_sphere_resample_and_matrix() {
         assert_eq!(g.arrays[1].meta.get("Name"), Some("missing"));
         outs.push(th);
 
+        // The sphere file as its own target: the values come back exactly.
+        let same = d.join(format!("same{i}.shape.gii"));
+        let o = run(&[
+            "resample",
+            "--sphere",
+            s(&sphere),
+            "--data",
+            s(&data),
+            "--target",
+            s(&sphere),
+            "-o",
+            s(&same),
+        ]);
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        assert_eq!(gifti::read_shape(&same).unwrap().values, thick);
+
         // Smoothing on the native surface (here the sphere itself).
         let o = run(&[
             "resample",
@@ -996,4 +1012,39 @@ fn commands_sphere_resample_and_matrix() {
     ]);
     assert!(String::from_utf8_lossy(&o.stderr).contains("icosphere:K"));
     let _ = std::fs::remove_dir_all(&d);
+}
+
+#[test]
+fn same_result_whatever_the_thread_count() {
+    let subject = jittered_sphere(4, 100.0, 0.3, 77);
+    let target = icosphere(5, 100.0);
+    let x: Vec<f64> = subject.positions.iter().map(|p| p[0] * p[1]).collect();
+    let maps = [InputMap {
+        name: "x".into(),
+        values: MapValues::Continuous(x),
+    }];
+    let go = |threads: usize| {
+        let pool = rayon::ThreadPoolBuilder::new()
+            .num_threads(threads)
+            .build()
+            .unwrap();
+        pool.install(|| {
+            let (out, _) = resample_maps(
+                &subject.positions,
+                None,
+                &target.positions,
+                &maps,
+                None,
+                &Default::default(),
+            )
+            .unwrap();
+            match &out[0].values {
+                MapValues::Continuous(v) => v.iter().map(|y| y.to_bits()).collect::<Vec<u64>>(),
+                MapValues::Labels { .. } => Vec::new(),
+            }
+        })
+    };
+    let one = go(1);
+    assert_eq!(one.len(), target.n_vertices());
+    assert_eq!(one, go(3));
 }
