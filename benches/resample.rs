@@ -9,8 +9,10 @@
 //! figures (best of a few runs); no pass/fail.
 
 use horosphere::mesh::shapes::icosphere;
+use horosphere::resample::hull::convex_hull;
 use horosphere::resample::locate::Locator;
 use horosphere::resample::smooth::{smooth_maps, SmoothOptions};
+use horosphere::resample::target::{check_sphere, directions};
 use horosphere::resample::{resample_located, InputMap, MapValues};
 use std::time::Instant;
 
@@ -47,6 +49,34 @@ fn subject(n: usize) -> Vec<[f64; 3]> {
         .collect()
 }
 
+/// CPU time of the calling thread (s), from /proc/thread-self/schedstat
+/// (Linux); 0 elsewhere. Under a loaded machine this is steadier than the
+/// wall clock for the single-threaded steps.
+fn thread_cpu() -> f64 {
+    std::fs::read_to_string("/proc/thread-self/schedstat")
+        .ok()
+        .and_then(|s| {
+            s.split_whitespace()
+                .next()
+                .and_then(|x| x.parse::<f64>().ok())
+        })
+        .map_or(0.0, |ns| ns * 1e-9)
+}
+
+/// CPU time of the whole process, all threads (s), from /proc/self/stat
+/// (Linux, clock ticks of 10 ms); 0 elsewhere.
+fn process_cpu() -> f64 {
+    std::fs::read_to_string("/proc/self/stat")
+        .ok()
+        .and_then(|s| {
+            let rest = s.rsplit(')').next()?.split_whitespace().collect::<Vec<_>>();
+            let u = rest.get(11)?.parse::<f64>().ok()?;
+            let k = rest.get(12)?.parse::<f64>().ok()?;
+            Some((u + k) / 100.0)
+        })
+        .unwrap_or(0.0)
+}
+
 fn best<T>(runs: usize, mut f: impl FnMut() -> T) -> (f64, T) {
     let mut best = f64::INFINITY;
     let mut out = None;
@@ -66,9 +96,19 @@ fn main() -> horosphere::Result<()> {
     let n = 160_000;
     let pts = subject(n);
     let (t_target, target) = best(3, || icosphere(7, 100.0));
+    let dirs = directions(&pts);
+    let (t_check, _) = best(3, || check_sphere(&pts, 1e-3));
+    let c0 = thread_cpu();
+    let (t_hull, hull) = best(3, || convex_hull(&dirs));
+    let c_hull = (thread_cpu() - c0) / 3.0;
+    hull?;
+    let c0 = process_cpu();
     let (t_loc, locator) = best(3, || Locator::new(&pts, None, 1e-3));
+    let c_loc = (process_cpu() - c0) / 3.0;
     let locator = locator?;
+    let c0 = process_cpu();
     let (t_locate, location) = best(3, || locator.locate(&target.positions));
+    let c_locate = (process_cpu() - c0) / 3.0;
     let location = location?;
     let maps: Vec<InputMap> = (0..5)
         .map(|k| InputMap {
@@ -78,9 +118,11 @@ fn main() -> horosphere::Result<()> {
             ),
         })
         .collect();
+    let c0 = process_cpu();
     let (t_one, r1) = best(3, || {
         resample_located(&locator, &location, &maps[..1], None, None)
     });
+    let c_one = (process_cpu() - c0) / 3.0;
     r1?;
     let (t_five, r5) = best(3, || {
         resample_located(&locator, &location, &maps, None, None)
@@ -95,16 +137,25 @@ fn main() -> horosphere::Result<()> {
     println!("hull triangles              {}", locator.hull().faces.len());
     println!("target vertices (level 7)   {}", target.n_vertices());
     println!("build target level 7        {:.3} s", t_target);
-    println!("sphere check + hull + grid  {:.3} s", t_loc);
+    println!("sphere check                {:.3} s", t_check);
     println!(
-        "locate 163,842 targets      {:.3} s (fallback walks: {})",
-        t_locate, location.n_fallback
+        "convex hull                 {:.3} s (thread CPU {:.3} s)",
+        t_hull, c_hull
+    );
+    println!(
+        "sphere check + hull + grid  {:.3} s (process CPU {:.2} s)",
+        t_loc, c_loc
+    );
+    println!(
+        "locate 163,842 targets      {:.3} s (process CPU {:.2} s; fallback walks: {})",
+        t_locate, c_locate, location.n_fallback
     );
     println!("interpolate 1 map           {:.4} s", t_one);
     println!("interpolate 5 maps          {:.4} s", t_five);
     println!(
-        "total, 1 map (hull+locate+map) {:.3} s; each extra map {:.4} s",
+        "total, 1 map (hull+locate+map) {:.3} s wall, {:.2} s CPU; each extra map {:.4} s",
         t_loc + t_locate + t_one,
+        c_loc + c_locate + c_one,
         (t_five - t_one) / 4.0
     );
     println!(

@@ -18,21 +18,28 @@
 //! 223-228), which is why this triangulation is valid wherever the subject's
 //! own connectivity folds on the sphere.
 //!
-//! Algorithm: randomized incremental construction with a conflict graph
-//! (Clarkson and Shor, "Applications of random sampling in computational
-//! geometry, II", Discrete & Computational Geometry 4 (1989) 387-421; as
-//! presented in de Berg, Cheong, van Kreveld, Overmars, "Computational
-//! Geometry: Algorithms and Applications", 3rd ed. 2008, ch. 11), O(n log n)
-//! expected. Each pending point keeps one triangle it sees; when that
-//! triangle is removed the point is tested against the triangles just made
-//! (a point outside the new hull always sees one of them, since the segment
-//! from it to the removed triangle crosses the new cone). A triangle is
-//! visible from `q` only when `q` is strictly above its plane; co-planar
-//! configurations (co-spherical points, such as the symmetric quadrilaterals
-//! of an icosahedral sphere) therefore keep the older triangles and stay
-//! valid without symbolic perturbation: a point on a sphere is strictly
-//! outside the hull of other points of that sphere, so it strictly sees at
-//! least one triangle.
+//! Algorithm: incremental construction in a biased randomized insertion
+//! order (Amenta, Choi, Rote, "Incremental constructions con BRIO",
+//! Symposium on Computational Geometry 2003): the points are shuffled
+//! with a fixed seed, split into rounds of doubling size, and each round is
+//! sorted along a Morton (Z-order) curve, so that each point is close to
+//! the one before. A new point `p` is located by a visibility walk
+//! (Devillers, Pion, Teillaud 2002, see [`super::locate`]) from the last
+//! new triangle to the triangle whose central projection contains the
+//! direction of `p`. Once the hull contains the origin, that triangle is
+//! visible from `p` exactly when `p` is outside the hull (the ray from the
+//! origin to `p` crosses it before reaching `p`); otherwise `p` is on or
+//! inside the hull and is excluded. The visible region is then found by a
+//! search across edges, removed, and its horizon joined to `p` (the
+//! beneath-beyond step; Preparata and Hong, "Convex hulls of finite sets
+//! of points in two and three dimensions", Comm. ACM 20 (1977) 87-93).
+//! Before the hull contains the origin (the first few points), visible
+//! triangles are found by a scan. A triangle is visible from `q` only when
+//! `q` is strictly above its plane; co-planar configurations (co-spherical
+//! points, such as the symmetric quadrilaterals of an icosahedral sphere)
+//! therefore keep the older triangles and stay valid without symbolic
+//! perturbation: a point on a sphere is strictly outside the hull of other
+//! points of that sphere, so it strictly sees at least one triangle.
 
 use super::predicates::orient;
 use crate::error::{Error, Result};
@@ -84,14 +91,13 @@ struct Builder<'a> {
     faces: Vec<[u32; 3]>,
     nbr: Vec<[u32; 3]>,
     alive: Vec<bool>,
-    /// Pending points that see each triangle.
-    outside: Vec<Vec<u32>>,
-    /// Per point: the triangle it sees, or NONE.
-    conflict: Vec<u32>,
     /// Scratch per vertex: the new triangle whose base edge starts there.
     start_of: Vec<u32>,
     /// Scratch per triangle: visited in the current insertion.
     mark: Vec<u32>,
+    /// Scratch lists of one insertion.
+    visible: Vec<u32>,
+    horizon: Vec<(u32, u32, u32)>,
 }
 
 impl Builder<'_> {
@@ -105,18 +111,21 @@ impl Builder<'_> {
         self.faces.push(v);
         self.nbr.push([NONE; 3]);
         self.alive.push(true);
-        self.outside.push(Vec::new());
         self.mark.push(0);
         (self.faces.len() - 1) as u32
     }
 
     /// Insert point `p`, which sees triangle `f0`.
-    fn insert(&mut self, p: u32, f0: u32, stamp: u32) -> Result<()> {
+    /// Returns the first new triangle.
+    fn insert(&mut self, p: u32, f0: u32, stamp: u32) -> Result<u32> {
         // Visible region: connected, found by a search from f0.
-        let mut visible = vec![f0];
+        let mut visible = std::mem::take(&mut self.visible);
+        let mut horizon = std::mem::take(&mut self.horizon); // (a, b, outer face)
+        visible.clear();
+        horizon.clear();
+        visible.push(f0);
         self.mark[f0 as usize] = stamp;
         let mut k = 0;
-        let mut horizon: Vec<(u32, u32, u32)> = Vec::new(); // (a, b, outer face)
         while k < visible.len() {
             let f = visible[k];
             k += 1;
@@ -186,30 +195,60 @@ impl Builder<'_> {
         for &(a, _, _) in &horizon {
             self.start_of[a as usize] = NONE;
         }
-        let last_new = self.faces.len() as u32;
-        // Remove the visible triangles and hand their pending points on.
         for &f in &visible {
             self.alive[f as usize] = false;
-            let pending = std::mem::take(&mut self.outside[f as usize]);
-            for q in pending {
-                if q == p || self.conflict[q as usize] != f {
-                    continue;
-                }
-                let mut found = NONE;
-                for nf in first_new..last_new {
-                    if self.sees(nf, q) {
-                        found = nf;
-                        break;
-                    }
-                }
-                self.conflict[q as usize] = found;
-                if found != NONE {
-                    self.outside[found as usize].push(q);
-                }
+        }
+        self.visible = visible;
+        self.horizon = horizon;
+        Ok(first_new)
+    }
+
+    /// Triple product sign of edge `k` of `f` with direction `t` (exact).
+    fn edge_outside(&self, f: u32, k: usize, t: Vec3) -> bool {
+        let v = self.faces[f as usize];
+        let (a, b) = (self.pts[v[k] as usize], self.pts[v[(k + 1) % 3] as usize]);
+        // Float triple product first: its rounding error is below
+        // 1e-14 |a| |b| |t| (a few roundings of the products), so a larger
+        // value has a certain sign; otherwise decide exactly.
+        let d = dot(crate::mesh::cross(a, b), t);
+        let scale = crate::mesh::norm(a) * crate::mesh::norm(b) * crate::mesh::norm(t);
+        if d.abs() > 1e-13 * scale {
+            return d < 0.0;
+        }
+        orient([0.0; 3], a, b, t) < 0
+    }
+
+    /// Walk from `start` to the triangle whose central projection holds the
+    /// direction of `t`; `None` after `limit` steps.
+    fn walk(&self, t: Vec3, start: u32, limit: usize) -> Option<u32> {
+        let mut f = start;
+        for step in 0..limit {
+            let r = step % 3;
+            match (0..3)
+                .map(|k| (k + r) % 3)
+                .find(|&k| self.edge_outside(f, k, t))
+            {
+                Some(k) => f = self.nbr[f as usize][k],
+                None => return Some(f),
             }
         }
-        self.conflict[p as usize] = NONE;
-        Ok(())
+        None
+    }
+
+    /// A live triangle visible from `p`, by a scan.
+    fn scan_visible(&self, p: u32) -> Option<u32> {
+        (0..self.faces.len() as u32).find(|&f| self.alive[f as usize] && self.sees(f, p))
+    }
+
+    /// True when the origin is strictly below every live triangle.
+    fn contains_origin(&self) -> bool {
+        (0..self.faces.len()).all(|f| {
+            !self.alive[f] || {
+                let [a, b, c] = self.faces[f];
+                let q = |i: u32| self.pts[i as usize];
+                orient(q(a), q(b), q(c), [0.0; 3]) < 0
+            }
+        })
     }
 }
 
@@ -267,10 +306,10 @@ pub fn convex_hull(points: &[Vec3]) -> Result<Hull> {
         faces: Vec::with_capacity(2 * n + 16),
         nbr: Vec::with_capacity(2 * n + 16),
         alive: Vec::with_capacity(2 * n + 16),
-        outside: Vec::with_capacity(2 * n + 16),
-        conflict: vec![NONE; n],
         start_of: vec![NONE; n],
         mark: Vec::with_capacity(2 * n + 16),
+        visible: Vec::new(),
+        horizon: Vec::new(),
     };
     // Orient the tetrahedron so that every face is counter-clockwise from outside.
     let [t0, t1, t2, t3] = tet;
@@ -295,7 +334,7 @@ pub fn convex_hull(points: &[Vec3]) -> Result<Hull> {
     b.nbr[f2 as usize] = [f1, f3, f0];
     b.nbr[f3 as usize] = [f2, f1, f0];
 
-    // Random insertion order (fixed seed), then the initial conflicts.
+    // Biased randomized insertion order (fixed seed).
     let mut rest: Vec<u32> = distinct
         .iter()
         .copied()
@@ -306,24 +345,52 @@ pub fn convex_hull(points: &[Vec3]) -> Result<Hull> {
         let j = rng.below(i + 1);
         rest.swap(i, j);
     }
-    for &q in &rest {
-        for f in [f0, f1, f2, f3] {
-            if b.sees(f, q) {
-                b.conflict[q as usize] = f;
-                b.outside[f as usize].push(q);
-                break;
-            }
+    let mut end = rest.len();
+    let mut rounds = Vec::new();
+    while end > 0 {
+        let start = if end > 64 { end / 2 } else { 0 };
+        rounds.push((start, end));
+        end = start;
+    }
+    for &(a, b) in &rounds {
+        if let Some(r) = rest.get_mut(a..b) {
+            r.sort_by_cached_key(|&i| morton(points[i as usize]));
         }
     }
+    let limit = 1000 + 20 * (n as f64).sqrt() as usize;
     let mut stamp = 0u32;
+    let mut origin_inside = b.contains_origin();
+    let mut last = f0;
     for &q in &rest {
-        let f = b.conflict[q as usize];
-        if f == NONE {
+        let found = if origin_inside {
+            let t = points[q as usize];
+            let f = match b.walk(t, last, limit) {
+                Some(f) => Some(f),
+                None => {
+                    // Not seen on hulls of sphere points; kept as a safeguard.
+                    (0..b.faces.len() as u32)
+                        .filter(|&f| b.alive[f as usize])
+                        .find(|&f| (0..3).all(|k| !b.edge_outside(f, k, t)))
+                }
+            };
+            f.filter(|&f| b.sees(f, q))
+        } else {
+            b.scan_visible(q)
+        };
+        let Some(f) = found else {
             excluded.push((q, Excluded::Interior));
             continue;
-        }
+        };
         stamp += 1;
-        b.insert(q, f, stamp)?;
+        last = b.insert(q, f, stamp)?;
+        if !origin_inside {
+            origin_inside = b.contains_origin();
+        }
+    }
+    if !origin_inside {
+        return Err(Error::Invalid(
+            "the sphere points do not surround the centre; expected points spread over the whole sphere".into(),
+        ));
     }
 
     // Compact the live triangles.
@@ -373,10 +440,85 @@ pub fn convex_hull(points: &[Vec3]) -> Result<Hull> {
     })
 }
 
+/// Morton (Z-order) code of a point of the unit cube `[-1, 1]^3`, 21 bits
+/// per axis (Morton, "A computer oriented geodetic data base and a new
+/// technique in file sequencing", IBM report, 1966).
+fn morton(p: Vec3) -> u64 {
+    let l = crate::mesh::norm(p);
+    let p = if l > 0.0 {
+        [p[0] / l, p[1] / l, p[2] / l]
+    } else {
+        p
+    };
+    let spread = |x: f64| {
+        let v = (((x.clamp(-1.0, 1.0) + 1.0) / 2.0) * ((1u64 << 21) - 1) as f64) as u64;
+        let mut r = 0u64;
+        for bit in 0..21 {
+            r |= ((v >> bit) & 1) << (3 * bit);
+        }
+        r
+    };
+    spread(p[0]) | (spread(p[1]) << 1) | (spread(p[2]) << 2)
+}
+
 /// Four of the `candidates` spanning a tetrahedron (exact test), chosen by
 /// extremes so that it is large.
 fn initial_tetrahedron(points: &[Vec3], candidates: &[u32]) -> Result<[u32; 4]> {
     let p = |i: u32| points[i as usize];
+    // First choice: four of the extreme points in 14 directions (axes and
+    // diagonals) whose tetrahedron holds the origin strictly inside, so
+    // that the walk-based location works from the start.
+    let mut dirs: Vec<Vec3> = Vec::with_capacity(14);
+    for k in 0..3 {
+        for sgn in [1.0, -1.0] {
+            let mut d = [0.0; 3];
+            d[k] = sgn;
+            dirs.push(d);
+        }
+    }
+    for sx in [1.0, -1.0] {
+        for sy in [1.0, -1.0] {
+            for sz in [1.0, -1.0] {
+                dirs.push([sx, sy, sz]);
+            }
+        }
+    }
+    let mut ext: Vec<u32> = dirs
+        .iter()
+        .filter_map(|&d| {
+            candidates
+                .iter()
+                .copied()
+                .max_by(|&i, &j| dot(d, p(i)).total_cmp(&dot(d, p(j))).then(j.cmp(&i)))
+        })
+        .collect();
+    ext.dedup();
+    let holds_origin = |t: [u32; 4]| {
+        let [a, b, c, d] = t.map(p);
+        let s = orient(a, b, c, d);
+        s != 0
+            && [(a, b, c, d), (a, b, d, c), (a, c, d, b), (b, c, d, a)]
+                .iter()
+                .all(|&(x, y, z, w)| {
+                    let sw = orient(x, y, z, w);
+                    sw != 0 && orient(x, y, z, [0.0; 3]) == sw
+                })
+    };
+    let m = ext.len();
+    for i in 0..m {
+        for j in i + 1..m {
+            for k in j + 1..m {
+                for l in k + 1..m {
+                    let t = [ext[i], ext[j], ext[k], ext[l]];
+                    let mut u = t;
+                    u.sort_unstable();
+                    if u.windows(2).all(|w| w[0] != w[1]) && holds_origin(t) {
+                        return Ok(t);
+                    }
+                }
+            }
+        }
+    }
     let flat = || {
         Error::Invalid(
             "the sphere points lie on one plane (or a line); expected points spread over a sphere"
