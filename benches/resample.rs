@@ -164,18 +164,20 @@ fn main() -> horosphere::Result<()> {
         l8.n_vertices()
     );
     let x: Vec<f64> = target.positions.iter().map(|p| p[0]).collect();
-    let (t_sm, sm) = best(1, || {
-        smooth_maps(
-            &target,
-            std::slice::from_ref(&x),
-            None,
-            &SmoothOptions::new(10.0),
-        )
-    });
-    sm?;
-    println!(
-        "smooth 1 map, 163,842 vertices, FWHM 10 mm, 100 steps  {:.3} s",
-        t_sm
-    );
+    let y: Vec<f64> = target.positions.iter().map(|p| p[1] * p[2]).collect();
+    for (steps, maps) in [(1usize, 1usize), (100, 1), (100, 3)] {
+        let input: Vec<Vec<f64>> = [&x, &y, &x][..maps].iter().map(|v| v.to_vec()).collect();
+        let opts = SmoothOptions {
+            fwhm_mm: 10.0,
+            steps,
+        };
+        let c0 = process_cpu();
+        let (t, sm) = best(1, || smooth_maps(&target, &input, None, &opts));
+        let c = process_cpu() - c0;
+        sm?;
+        println!(
+            "smooth {maps} map(s), 163,842 vertices, FWHM 10 mm, {steps:>3} steps  {t:.3} s wall, {c:.2} s CPU"
+        );
+    }
     Ok(())
 }
