@@ -418,6 +418,20 @@ pub fn convex_hull(points: &[Vec3]) -> Result<Hull> {
             neighbours.push(m);
         }
     }
+    // Points inserted early can end up inside the hull of later ones when
+    // they are not in convex position (rounding): they lose every triangle.
+    let mut used = vec![false; n];
+    for v in faces.iter().flatten() {
+        used[*v as usize] = true;
+    }
+    for e in &excluded {
+        used[e.0 as usize] = true;
+    }
+    for (i, u) in used.iter().enumerate() {
+        if !u {
+            excluded.push((i as u32, Excluded::Interior));
+        }
+    }
     excluded.sort_unstable_by_key(|e| e.0);
     // The origin must be strictly inside: below every hull plane.
     let origin = [0.0; 3];
@@ -682,6 +696,32 @@ mod tests {
             .collect();
         let e = convex_hull(&cap).unwrap_err().to_string();
         assert!(e.contains("centre"), "{e}");
+    }
+
+    #[test]
+    fn clustered_and_rounded_points_stay_a_valid_hull() {
+        // A conformal map can squeeze many vertices into a tiny cap; stored
+        // as 32-bit floats, such points are no longer in convex position.
+        // The hull must stay valid, drop only such points, and report them.
+        let mut pts = icosphere(3, 100.0).positions;
+        let mut rng = SplitMix(99);
+        let mut unit = || (rng.next() >> 11) as f64 / (1u64 << 53) as f64 - 0.5;
+        for &spread in &[1e-3, 1e-6, 1e-9] {
+            for _ in 0..300 {
+                let p = [1.0 + 0.0 * unit(), spread * unit(), spread * unit()];
+                let l = crate::mesh::norm(p);
+                pts.push([100.0 * p[0] / l, 100.0 * p[1] / l, 100.0 * p[2] / l]);
+            }
+        }
+        let rounded: Vec<Vec3> = pts.iter().map(|p| p.map(|c| f64::from(c as f32))).collect();
+        for set in [&pts, &rounded] {
+            let h = convex_hull(set).unwrap();
+            h.check(set, true).unwrap();
+            let used = set.len() - h.excluded.len();
+            assert_eq!(h.faces.len(), 2 * used - 4);
+            // The well-separated icosphere points are all kept.
+            assert!(h.excluded.iter().all(|e| e.0 >= 642));
+        }
     }
 
     #[test]

@@ -411,6 +411,50 @@ mod tests {
     }
 
     #[test]
+    fn targets_inside_a_tight_cluster() {
+        // 400 subject points within 1e-5 rad of +x (as a conformal map may
+        // produce), stored as 32-bit floats, plus a coarse sphere; targets
+        // on and around the cluster.
+        let mut pts = icosphere(2, 100.0).positions;
+        let mut s = 5u64;
+        let mut unit = || {
+            s = s
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            (s >> 11) as f64 / (1u64 << 53) as f64 - 0.5
+        };
+        for _ in 0..400 {
+            let p = [1.0, 1e-5 * unit(), 1e-5 * unit()];
+            let l = crate::mesh::norm(p);
+            pts.push(
+                [100.0 * p[0] / l, 100.0 * p[1] / l, 100.0 * p[2] / l].map(|c| f64::from(c as f32)),
+            );
+        }
+        let loc = Locator::new(&pts, None, 1e-6).unwrap();
+        let targets: Vec<Vec3> = (0..2000)
+            .map(|i| {
+                let sc = if i % 2 == 0 { 1e-5 } else { 1e-2 };
+                [1.0, sc * unit(), sc * unit()]
+            })
+            .collect();
+        let l = loc.locate(&targets).unwrap();
+        assert_eq!(l.n_fallback, 0);
+        for (p, t) in l.points.iter().zip(directions(&targets)) {
+            assert!((p.weights.iter().sum::<f64>() - 1.0).abs() < 1e-12);
+            assert!(p.weights.iter().all(|&w| w >= 0.0));
+            let mut q = [0.0; 3];
+            for k in 0..3 {
+                let d = loc.dirs[p.vertices[k] as usize];
+                for c in 0..3 {
+                    q[c] += p.weights[k] * d[c];
+                }
+            }
+            let qn = crate::mesh::norm(q);
+            assert!((0..3).all(|c| (q[c] / qn - t[c]).abs() < 1e-9));
+        }
+    }
+
+    #[test]
     fn precomputed_faces_are_checked_and_used() {
         let m = icosphere(2, 100.0);
         let loc = Locator::new(&m.positions, Some(&m.faces), 1e-6).unwrap();
