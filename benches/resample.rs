@@ -1,12 +1,14 @@
 //! Benchmark of the resampling stage (run: `cargo bench --bench resample`).
 //!
-//! A 160,000-vertex subject sphere (a Fibonacci lattice with jitter,
+//! With `--bench` (as `cargo bench` passes): a 160,000-vertex subject sphere (a Fibonacci lattice with jitter,
 //! re-projected to radius 100 mm, then rotated) to the level-7 target
 //! (163,842 vertices): the sphere checks, the convex hull, the grid and the
 //! point location, then one linear map, then four more maps on the same
 //! location; also building the level-8 target (655,362 vertices) and one
 //! heat-kernel smoothing of a 163,842-vertex surface. Prints wall-clock
-//! figures (best of a few runs); no pass/fail.
+//! figures (best of a few runs); no pass/fail. Without `--bench` (under
+//! `cargo test --all-targets`): the same steps at small sizes, as a smoke
+//! test.
 
 use horosphere::mesh::shapes::icosphere;
 use horosphere::resample::hull::convex_hull;
@@ -93,9 +95,16 @@ fn best<T>(runs: usize, mut f: impl FnMut() -> T) -> (f64, T) {
 }
 
 fn main() -> horosphere::Result<()> {
-    let n = 160_000;
+    // `cargo bench` passes --bench: the full sizes. Without it (as under
+    // `cargo test --all-targets`) a small smoke run keeps the suite fast.
+    let full = std::env::args().any(|a| a == "--bench");
+    let (n, level, steps) = if full {
+        (160_000, 7, 100)
+    } else {
+        (5_000, 4, 5)
+    };
     let pts = subject(n);
-    let (t_target, target) = best(3, || icosphere(7, 100.0));
+    let (t_target, target) = best(3, || icosphere(level, 100.0));
     let dirs = directions(&pts);
     let (t_check, _) = best(3, || check_sphere(&pts, 1e-3));
     let c0 = thread_cpu();
@@ -128,15 +137,15 @@ fn main() -> horosphere::Result<()> {
         resample_located(&locator, &location, &maps, None, None)
     });
     r5?;
-    let (t_l8, l8) = best(1, || icosphere(8, 100.0));
+    let (t_l8, l8) = best(1, || icosphere(if full { 8 } else { 5 }, 100.0));
     println!(
         "resample benchmark ({} threads)",
         rayon::current_num_threads()
     );
     println!("subject vertices            {n}");
     println!("hull triangles              {}", locator.hull().faces.len());
-    println!("target vertices (level 7)   {}", target.n_vertices());
-    println!("build target level 7        {:.3} s", t_target);
+    println!("target vertices (level {level})   {}", target.n_vertices());
+    println!("build target level {level}        {:.3} s", t_target);
     println!("sphere check                {:.3} s", t_check);
     println!(
         "convex hull                 {:.3} s (thread CPU {:.3} s)",
@@ -147,8 +156,11 @@ fn main() -> horosphere::Result<()> {
         t_loc, c_loc
     );
     println!(
-        "locate 163,842 targets      {:.3} s (process CPU {:.2} s; fallback walks: {})",
-        t_locate, c_locate, location.n_fallback
+        "locate {} targets      {:.3} s (process CPU {:.2} s; fallback walks: {})",
+        target.n_vertices(),
+        t_locate,
+        c_locate,
+        location.n_fallback
     );
     println!("interpolate 1 map           {:.4} s", t_one);
     println!("interpolate 5 maps          {:.4} s", t_five);
@@ -159,13 +171,14 @@ fn main() -> horosphere::Result<()> {
         (t_five - t_one) / 4.0
     );
     println!(
-        "build target level 8        {:.3} s ({} vertices)",
+        "build target level {}        {:.3} s ({} vertices)",
+        if full { 8 } else { 5 },
         t_l8,
         l8.n_vertices()
     );
     let x: Vec<f64> = target.positions.iter().map(|p| p[0]).collect();
     let y: Vec<f64> = target.positions.iter().map(|p| p[1] * p[2]).collect();
-    for (steps, maps) in [(1usize, 1usize), (100, 1), (100, 3)] {
+    for (steps, maps) in [(1usize, 1usize), (steps, 1), (steps, 3)] {
         let input: Vec<Vec<f64>> = [&x, &y, &x][..maps].iter().map(|v| v.to_vec()).collect();
         let opts = SmoothOptions {
             fwhm_mm: 10.0,
@@ -176,7 +189,8 @@ fn main() -> horosphere::Result<()> {
         let c = process_cpu() - c0;
         sm?;
         println!(
-            "smooth {maps} map(s), 163,842 vertices, FWHM 10 mm, {steps:>3} steps  {t:.3} s wall, {c:.2} s CPU"
+            "smooth {maps} map(s), {} vertices, FWHM 10 mm, {steps:>3} steps  {t:.3} s wall, {c:.2} s CPU",
+            target.n_vertices()
         );
     }
     Ok(())
