@@ -408,6 +408,8 @@ fn identical_spheres_give_the_input_exactly() {
         let (out, rep) =
             resample_maps(&m.positions, None, &m.positions, sub_maps, None, &opts).unwrap();
         assert_eq!(rep.n_duplicate_vertices + rep.n_interior_vertices, 0);
+        // Both majority (the default for labels) and nearest give the input
+        // labels, so they are equal to each other.
         for (o, i) in out.iter().zip(sub_maps) {
             assert_eq!(o.values, i.values, "{method:?} {}", i.name);
             assert!(o.mask.iter().all(|&b| !b));

@@ -435,3 +435,111 @@ fn resample_one(
         }
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::locate::Located;
+    use super::*;
+
+    fn at(vertices: [u32; 3], weights: [f64; 3]) -> Located {
+        Located {
+            triangle: 0,
+            vertices,
+            weights,
+        }
+    }
+
+    #[test]
+    fn rules_on_single_triangles() {
+        let location = Location {
+            points: vec![
+                at([0, 1, 2], [0.4, 0.35, 0.25]), // majority: key of 1 and 2
+                at([0, 1, 2], [0.5, 0.3, 0.2]),   // vertex 1 masked
+                at([1, 0, 2], [0.5, 0.3, 0.2]),   // nearest (1) masked
+                at([0, 1, 2], [0.5, 0.5, 0.0]),   // tie: lowest vertex index
+            ],
+            n_fallback: 0,
+        };
+        let table = LabelTable {
+            labels: vec![
+                Label {
+                    key: 0,
+                    name: "zero".into(),
+                    rgba: None,
+                },
+                Label {
+                    key: 7,
+                    name: "seven".into(),
+                    rgba: None,
+                },
+                Label {
+                    key: 9,
+                    name: "nine".into(),
+                    rgba: None,
+                },
+            ],
+        };
+        let labels = InputMap {
+            name: "l".into(),
+            values: MapValues::Labels {
+                keys: vec![7, 9, 9],
+                table: table.clone(),
+            },
+        };
+        let cont = InputMap {
+            name: "c".into(),
+            values: MapValues::Continuous(vec![1.0, 100.0, 3.0]),
+        };
+        let mask = [false, true, false];
+        let out = resample_one(&location, &labels, Some(&mask), Method::Majority).unwrap();
+        let MapValues::Labels { keys, table: t } = &out.values else {
+            panic!()
+        };
+        // Point 0: vertex 1 masked, so 7 (0.4) beats 9 (0.25 from vertex 2).
+        // Point 1: 7 (0.5) beats 9 (0.2). Point 2: missing. Point 3: nearest 0 -> 7.
+        // Key 0 is taken by the table, so the missing key is -1.
+        assert_eq!(keys, &vec![7, 7, -1, 7]);
+        assert_eq!(out.mask, vec![false, false, true, false]);
+        assert_eq!(t.get(-1).map(|l| l.name.as_str()), Some("missing"));
+        assert_eq!(out.report.missing_key, Some(-1));
+        // Without the mask, the weighted majority wins over the nearest corner.
+        let out = resample_one(&location, &labels, None, Method::Majority).unwrap();
+        let MapValues::Labels { keys, .. } = &out.values else {
+            panic!()
+        };
+        assert_eq!(keys, &vec![9, 7, 9, 7]);
+        let out = resample_one(&location, &labels, None, Method::Nearest).unwrap();
+        let MapValues::Labels { keys, table: t } = &out.values else {
+            panic!()
+        };
+        assert_eq!(keys, &vec![7, 7, 9, 7]);
+        assert_eq!(t, &table);
+        // Linear with a masked corner: renormalised over the others.
+        let out = resample_one(&location, &cont, Some(&mask), Method::Linear).unwrap();
+        let MapValues::Continuous(v) = &out.values else {
+            panic!()
+        };
+        assert!((v[0] - (0.4 * 1.0 + 0.25 * 3.0) / 0.65).abs() < 1e-15);
+        assert!((v[1] - (0.5 * 1.0 + 0.2 * 3.0) / 0.7).abs() < 1e-15);
+        assert!(v[2].is_nan());
+        assert_eq!(v[3], 1.0);
+        assert_eq!(out.report.n_masked_output, 1);
+    }
+
+    #[test]
+    fn missing_key_choice() {
+        let mk = |keys: &[i32]| LabelTable {
+            labels: keys
+                .iter()
+                .map(|&key| Label {
+                    key,
+                    name: format!("k{key}"),
+                    rgba: None,
+                })
+                .collect(),
+        };
+        assert_eq!(missing_key(&mk(&[1, 2])), 0);
+        assert_eq!(missing_key(&mk(&[0, 2])), -1);
+        assert_eq!(missing_key(&mk(&[-3, -1, 0, 2])), -4);
+    }
+}
