@@ -1050,3 +1050,34 @@ fn same_result_whatever_the_thread_count() {
     assert_eq!(one.len(), target.n_vertices());
     assert_eq!(one, go(3));
 }
+
+#[test]
+fn hull_triangles_for_the_qhull_cross_check() {
+    // Writes a jittered sphere and our hull triangles for
+    // tests/reference/test_hull_scipy.py (scipy.spatial.ConvexHull, i.e.
+    // Qhull: Barber, Dobkin, Huhdanpaa, "The Quickhull algorithm for convex
+    // hulls", ACM Trans. Math. Softw. 22 (1996) 469-483). Checked here:
+    // Euler's formula F = 2V - 4 and outward orientation.
+    let m = jittered_sphere(3, 100.0, 0.3, 61);
+    let h = horosphere::resample::hull::convex_hull(&m.positions).unwrap();
+    assert!(h.excluded.is_empty());
+    assert_eq!(h.faces.len(), 2 * m.n_vertices() - 4);
+    for f in &h.faces {
+        let [a, b, c] = f.map(|v| m.positions[v as usize]);
+        assert!(dot(cross(sub(b, a), sub(c, a)), a) > 0.0);
+    }
+    if let Ok(dir) = std::env::var("HOROSPHERE_ARTIFACTS") {
+        let mut s = String::from("x,y,z\n");
+        for p in &m.positions {
+            s.push_str(&format!("{:.17e},{:.17e},{:.17e}\n", p[0], p[1], p[2]));
+        }
+        let mut t = String::from("a,b,c\n");
+        for f in &h.faces {
+            t.push_str(&format!("{},{},{}\n", f[0], f[1], f[2]));
+        }
+        let dir = PathBuf::from(dir);
+        std::fs::create_dir_all(&dir).unwrap();
+        horosphere::io::atomic::write_bytes(&dir.join("hull_points.csv"), s.as_bytes()).unwrap();
+        horosphere::io::atomic::write_bytes(&dir.join("hull_faces.csv"), t.as_bytes()).unwrap();
+    }
+}
