@@ -915,6 +915,15 @@ fn commands_sphere_resample_and_matrix() {
         let lb = out.join(format!(
             "sub-0{i}_hemi-L_space-icosphere4_octants.label.gii"
         ));
+        let side: serde_json::Value = serde_json::from_str(
+            &std::fs::read_to_string(
+                out.join(format!("sub-0{i}_hemi-L_space-icosphere4_thickness.json")),
+            )
+            .unwrap(),
+        )
+        .unwrap();
+        assert_eq!(side["Method"], "linear");
+        assert_eq!(side["Target"], "icosphere:4");
         let shape = gifti::read_shape(&th).unwrap();
         assert_eq!(shape.values.len(), 2562);
         let lab = gifti::read_labels(&lb).unwrap();

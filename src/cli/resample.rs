@@ -6,12 +6,15 @@
 //! optional `--mask`, `--fwhm` with `--surface`. Out: one GIFTI per map
 //! (values and a missing-vertex mask, see `horosphere::resample::files`),
 //! written atomically into the `-o` folder with the `space-` entity set, or
-//! to `-o FILE.gii` when there is a single map; a summary (text, or JSON
+//! to `-o FILE.gii` when there is a single map, each with a JSON
+//! provenance sidecar (same name, `.json`); a summary (text, or JSON
 //! with `--json`) on stdout. The library does the work
 //! (`horosphere::resample::resample_maps` and `smooth::smooth_maps`).
 
 use clap::Args;
-use horosphere::resample::files::{output_name, read_map, read_mask, resampled_gifti};
+use horosphere::resample::files::{
+    output_name, read_map, read_mask, resampled_gifti, sidecar_path,
+};
 use horosphere::resample::locate::Locator;
 use horosphere::resample::smooth::{smooth_maps, SmoothOptions, DEFAULT_STEPS};
 use horosphere::resample::target::{check_sphere, Target, DEFAULT_SPHERE_TOLERANCE};
@@ -244,6 +247,33 @@ pub fn run(args: &ResampleArgs) -> Result<ExitCode> {
         };
         let g = resampled_gifti(m, r.method, &args.target, &r.name);
         horosphere::io::gifti::write(&dest, &g, &Default::default())?;
+        // Provenance sidecar: inputs, options and counts; no time stamps,
+        // so that the same run gives the same bytes.
+        let side = serde_json::json!({
+            "Software": format!("horosphere {}", env!("CARGO_PKG_VERSION")),
+            "Source": p.display().to_string(),
+            "Sphere": args.sphere.display().to_string(),
+            "Target": args.target,
+            "Space": space,
+            "Method": r.method.name(),
+            "Mask": args.mask.as_ref().map(|m| m.display().to_string()),
+            "MaskKeys": args.mask_keys,
+            "SmoothingFWHMmm": args.fwhm,
+            "SmoothingSurface": args.surface.as_ref().map(|m| m.display().to_string()),
+            "TargetSmoothingFWHMmm": args.target_fwhm,
+            "SmoothingSteps": (args.fwhm.is_some() || args.target_fwhm.is_some()).then_some(args.steps),
+            "SphereTolerance": args.sphere_tolerance,
+            "Report": r,
+            "SubjectSphere": {
+                "Vertices": report.n_subject_vertices,
+                "HullTriangles": report.n_hull_triangles,
+                "DuplicateVertices": report.n_duplicate_vertices,
+                "InteriorVertices": report.n_interior_vertices,
+            },
+        });
+        let text = serde_json::to_string_pretty(&side)
+            .map_err(|e| Error::Invalid(format!("cannot serialise the sidecar: {e}")))?;
+        horosphere::io::atomic::write_bytes(&sidecar_path(&dest), format!("{text}\n").as_bytes())?;
         written.push(dest);
     }
     if args.json {

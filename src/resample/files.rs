@@ -156,6 +156,18 @@ pub fn output_name(input: &Path, space: &str) -> String {
     format!("{}{ext}", parts.join("_"))
 }
 
+/// The JSON sidecar path of an output (BIDS-derivatives style): the
+/// output's name with everything from the first dot replaced by `.json`
+/// (`x_space-icosphere6_thickness.shape.gii` -> `x_space-icosphere6_thickness.json`).
+pub fn sidecar_path(output: &Path) -> std::path::PathBuf {
+    let name = output.file_name().map_or_else(
+        || "output".to_string(),
+        |n| n.to_string_lossy().into_owned(),
+    );
+    let stem = name.split('.').next().unwrap_or("output");
+    output.with_file_name(format!("{stem}.json"))
+}
+
 /// A subject label for a file: its `sub-<label>` entity (`sub-01`), or the
 /// part of the name before the first dot.
 pub fn subject_label(path: &Path) -> String {
@@ -191,6 +203,10 @@ mod tests {
             "space-x_thick.shape.gii"
         );
         assert_eq!(subject_label(p), "sub-01");
+        assert_eq!(
+            sidecar_path(Path::new("/o/sub-01_space-x_thick.shape.gii")),
+            Path::new("/o/sub-01_space-x_thick.json")
+        );
         assert_eq!(subject_label(Path::new("alpha.shape.gii")), "alpha");
     }
 }
