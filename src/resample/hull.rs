@@ -26,15 +26,15 @@
 //! the one before. A new point `p` is located by a visibility walk
 //! (Devillers, Pion, Teillaud 2002, see [`super::locate`]) from the last
 //! new triangle to the triangle whose central projection contains the
-//! direction of `p`. Once the hull contains the origin, that triangle is
+//! direction of `p` seen from a projection centre strictly inside the hull
+//! (the origin, or else the first tetrahedron's centroid). That triangle is
 //! visible from `p` exactly when `p` is outside the hull (the ray from the
-//! origin to `p` crosses it before reaching `p`); otherwise `p` is on or
+//! centre to `p` crosses it before reaching `p`); otherwise `p` is on or
 //! inside the hull and is excluded. The visible region is then found by a
 //! search across edges, removed, and its horizon joined to `p` (the
 //! beneath-beyond step; Preparata and Hong, "Convex hulls of finite sets
 //! of points in two and three dimensions", Comm. ACM 20 (1977) 87-93).
-//! Before the hull contains the origin (the first few points), visible
-//! triangles are found by a scan. A triangle is visible from `q` only when
+//! A triangle is visible from `q` only when
 //! `q` is strictly above its plane; co-planar configurations (co-spherical
 //! points, such as the symmetric quadrilaterals of an icosahedral sphere)
 //! therefore keep the older triangles and stay valid without symbolic
@@ -95,6 +95,10 @@ struct Builder<'a> {
     start_of: Vec<u32>,
     /// Scratch per triangle: visited in the current insertion.
     mark: Vec<u32>,
+    /// Projection centre of the walks: a point strictly inside the hull
+    /// (the origin when the first tetrahedron holds it).
+    centre: Vec3,
+    centre_is_origin: bool,
     /// Scratch lists of one insertion.
     visible: Vec<u32>,
     horizon: Vec<(u32, u32, u32)>,
@@ -203,10 +207,14 @@ impl Builder<'_> {
         Ok(first_new)
     }
 
-    /// Triple product sign of edge `k` of `f` with direction `t` (exact).
+    /// True when `t` is on the outer side of the plane through the
+    /// projection centre and edge `k` of `f` (exact).
     fn edge_outside(&self, f: u32, k: usize, t: Vec3) -> bool {
         let v = self.faces[f as usize];
         let (a, b) = (self.pts[v[k] as usize], self.pts[v[(k + 1) % 3] as usize]);
+        if !self.centre_is_origin {
+            return orient(self.centre, a, b, t) < 0;
+        }
         // Float triple product first: its rounding error is below
         // 1e-14 |a| |b| |t| (a few roundings of the products), so a larger
         // value has a certain sign; otherwise decide exactly.
@@ -240,13 +248,13 @@ impl Builder<'_> {
         (0..self.faces.len() as u32).find(|&f| self.alive[f as usize] && self.sees(f, p))
     }
 
-    /// True when the origin is strictly below every live triangle.
-    fn contains_origin(&self) -> bool {
+    /// True when `c` is strictly below every live triangle.
+    fn holds(&self, c: Vec3) -> bool {
         (0..self.faces.len()).all(|f| {
             !self.alive[f] || {
-                let [a, b, c] = self.faces[f];
+                let [a, b, d] = self.faces[f];
                 let q = |i: u32| self.pts[i as usize];
-                orient(q(a), q(b), q(c), [0.0; 3]) < 0
+                orient(q(a), q(b), q(d), c) < 0
             }
         })
     }
@@ -257,6 +265,27 @@ impl Builder<'_> {
 /// inside (checked), as it does for points spread over a sphere centred at
 /// the origin.
 pub fn convex_hull(points: &[Vec3]) -> Result<Hull> {
+    let hull = any_hull(points)?;
+    // The origin must be strictly inside: below every hull plane.
+    let origin = [0.0; 3];
+    if let Some(f) = hull.faces.iter().position(|v| {
+        orient(
+            points[v[0] as usize],
+            points[v[1] as usize],
+            points[v[2] as usize],
+            origin,
+        ) >= 0
+    }) {
+        return Err(Error::Invalid(format!(
+            "the sphere points do not surround the centre (hull triangle {f} faces it); expected points spread over the whole sphere"
+        )));
+    }
+    Ok(hull)
+}
+
+/// The convex hull of any point set in general enough position (four
+/// points not on one plane), wherever the origin is.
+fn any_hull(points: &[Vec3]) -> Result<Hull> {
     let n = points.len();
     if n < 4 {
         return Err(Error::Invalid(format!(
@@ -310,6 +339,8 @@ pub fn convex_hull(points: &[Vec3]) -> Result<Hull> {
         mark: Vec::with_capacity(2 * n + 16),
         visible: Vec::new(),
         horizon: Vec::new(),
+        centre: [0.0; 3],
+        centre_is_origin: true,
     };
     // Orient the tetrahedron so that every face is counter-clockwise from outside.
     let [t0, t1, t2, t3] = tet;
@@ -359,10 +390,21 @@ pub fn convex_hull(points: &[Vec3]) -> Result<Hull> {
     }
     let limit = 1000 + 20 * (n as f64).sqrt() as usize;
     let mut stamp = 0u32;
-    let mut origin_inside = b.contains_origin();
+    // Projection centre: the origin when the tetrahedron holds it (then the
+    // hull triangulation is Delaunay on the sphere and walks are short),
+    // else the tetrahedron's centroid; if rounding puts even that outside,
+    // visible triangles are found by scans.
+    let use_walk = if b.holds([0.0; 3]) {
+        true
+    } else {
+        let c = tet.map(|i| points[i as usize]);
+        b.centre = [0, 1, 2].map(|k| (c[0][k] + c[1][k] + c[2][k] + c[3][k]) / 4.0);
+        b.centre_is_origin = false;
+        b.holds(b.centre)
+    };
     let mut last = f0;
     for &q in &rest {
-        let found = if origin_inside {
+        let found = if use_walk {
             let t = points[q as usize];
             let f = match b.walk(t, last, limit) {
                 Some(f) => Some(f),
@@ -383,14 +425,6 @@ pub fn convex_hull(points: &[Vec3]) -> Result<Hull> {
         };
         stamp += 1;
         last = b.insert(q, f, stamp)?;
-        if !origin_inside {
-            origin_inside = b.contains_origin();
-        }
-    }
-    if !origin_inside {
-        return Err(Error::Invalid(
-            "the sphere points do not surround the centre; expected points spread over the whole sphere".into(),
-        ));
     }
 
     // Compact the live triangles.
@@ -433,20 +467,6 @@ pub fn convex_hull(points: &[Vec3]) -> Result<Hull> {
         }
     }
     excluded.sort_unstable_by_key(|e| e.0);
-    // The origin must be strictly inside: below every hull plane.
-    let origin = [0.0; 3];
-    if let Some(f) = faces.iter().position(|v| {
-        orient(
-            points[v[0] as usize],
-            points[v[1] as usize],
-            points[v[2] as usize],
-            origin,
-        ) >= 0
-    }) {
-        return Err(Error::Invalid(format!(
-            "the sphere points do not surround the centre (hull triangle {f} faces it); expected points spread over the whole sphere"
-        )));
-    }
     Ok(Hull {
         faces,
         neighbours,
@@ -721,6 +741,23 @@ mod tests {
             assert_eq!(h.faces.len(), 2 * used - 4);
             // The well-separated icosphere points are all kept.
             assert!(h.excluded.iter().all(|e| e.0 >= 642));
+        }
+    }
+
+    #[test]
+    fn hull_away_from_the_origin_uses_an_inner_centre() {
+        // Sphere points centred at (1000, -500, 20): the origin is outside,
+        // so the walks project from the first tetrahedron's centroid.
+        for pts in [fibonacci(3000, 0.02), icosphere(3, 100.0).positions] {
+            let shifted: Vec<Vec3> = pts
+                .iter()
+                .map(|p| [p[0] + 1000.0, p[1] - 500.0, p[2] + 20.0])
+                .collect();
+            let h = any_hull(&shifted).unwrap();
+            assert!(h.excluded.is_empty());
+            assert_eq!(h.faces.len(), 2 * shifted.len() - 4);
+            h.check(&shifted, shifted.len() < 1000).unwrap();
+            assert!(convex_hull(&shifted).is_err());
         }
     }
 
