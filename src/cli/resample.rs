@@ -16,7 +16,7 @@ use horosphere::resample::files::{
     output_name, read_map, read_mask, resampled_gifti, sidecar_path,
 };
 use horosphere::resample::locate::Locator;
-use horosphere::resample::smooth::{smooth_maps, SmoothOptions, DEFAULT_STEPS};
+use horosphere::resample::smooth::{smooth_maps_with_progress, SmoothOptions, DEFAULT_STEPS};
 use horosphere::resample::target::{check_sphere, Target, DEFAULT_SPHERE_TOLERANCE};
 use horosphere::resample::{resample_located, InputMap, MapValues, Method};
 use horosphere::{Error, Result};
@@ -76,6 +76,25 @@ pub struct ResampleArgs {
     /// Print the summary as JSON.
     #[arg(long)]
     pub json: bool,
+}
+
+/// A progress callback drawing an indicatif bar on stderr when it is a
+/// terminal (hidden otherwise, so logs stay quiet).
+fn bar(what: &'static str) -> impl FnMut(usize, usize) {
+    let pb = indicatif::ProgressBar::new(0);
+    pb.set_message(what);
+    if let Ok(style) =
+        indicatif::ProgressStyle::with_template("{msg} [{bar:30}] {pos}/{len} implicit steps")
+    {
+        pb.set_style(style);
+    }
+    move |done, total| {
+        pb.set_length(total as u64);
+        pb.set_position(done as u64);
+        if done >= total {
+            pb.finish_and_clear();
+        }
+    }
 }
 
 fn is_gii(p: &Path) -> bool {
@@ -176,8 +195,9 @@ pub fn run(args: &ResampleArgs) -> Result<ExitCode> {
                 }
             }
         }
-        let (out, rep) = smooth_maps(&native, &cont, mask.as_deref(), opts)
-            .map_err(|e| e.in_file(surface, "surface"))?;
+        let (out, rep) =
+            smooth_maps_with_progress(&native, &cont, mask.as_deref(), opts, &mut bar("smoothing"))
+                .map_err(|e| e.in_file(surface, "surface"))?;
         for (m, v) in maps.iter_mut().zip(out) {
             m.values = MapValues::Continuous(v);
         }
@@ -228,7 +248,13 @@ pub fn run(args: &ResampleArgs) -> Result<ExitCode> {
             fwhm_mm: f,
             steps: args.steps,
         };
-        let (sm, rep) = smooth_maps(&target_mesh, &cont, None, &opts)?;
+        let (sm, rep) = smooth_maps_with_progress(
+            &target_mesh,
+            &cont,
+            None,
+            &opts,
+            &mut bar("smoothing on the target"),
+        )?;
         for (k, v) in idx.into_iter().zip(sm) {
             if let Some(m) = out.get_mut(k) {
                 m.values = MapValues::Continuous(v);

@@ -171,6 +171,19 @@ pub fn smooth_maps(
     mask: Option<&[bool]>,
     opts: &SmoothOptions,
 ) -> Result<(Vec<Vec<f64>>, SmoothReport)> {
+    smooth_maps_with_progress(mesh, maps, mask, opts, &mut |_, _| {})
+}
+
+/// [`smooth_maps`], calling `progress(done, total)` after each implicit
+/// step (`total` = steps times the number of distinct masks), e.g. to
+/// drive a progress bar.
+pub fn smooth_maps_with_progress(
+    mesh: &TriMesh,
+    maps: &[Vec<f64>],
+    mask: Option<&[bool]>,
+    opts: &SmoothOptions,
+    progress: &mut dyn FnMut(usize, usize),
+) -> Result<(Vec<Vec<f64>>, SmoothReport)> {
     let n = mesh.n_vertices();
     if !(opts.fwhm_mm.is_finite() && opts.fwhm_mm > 0.0) {
         return Err(Error::Invalid(format!(
@@ -220,6 +233,8 @@ pub fn smooth_maps(
     }
     let mut out: Vec<Vec<f64>> = maps.to_vec();
     let mut n_isolated = vec![0; maps.len()];
+    let total = opts.steps * groups.len();
+    let mut done = 0;
     for (rep, members) in &groups {
         let active: Vec<bool> = masks[*rep].iter().map(|&b| !b).collect();
         let (weights, mass) = assemble(mesh, &active);
@@ -304,6 +319,7 @@ pub fn smooth_maps(
             MemBuffer::try_new(symbolic.solve_in_place_scratch::<f64>(members.len(), Par::Seq))
                 .map_err(|e| faer_err("workspace", e))?;
         for _ in 0..opts.steps {
+            done += 1;
             for j in 0..members.len() {
                 for (i, &v) in vars.iter().enumerate() {
                     rhs[(i, j)] *= mass[v];
@@ -315,6 +331,7 @@ pub fn smooth_maps(
                 Par::Seq,
                 MemStack::new(&mut sbuf),
             );
+            progress(done, total);
         }
         for (j, &k) in members.iter().enumerate() {
             for (i, &v) in vars.iter().enumerate() {
