@@ -18,6 +18,7 @@ pub mod mesh;
 pub mod moebius;
 pub mod repair;
 pub mod synth;
+pub mod resample;
 
 pub use error::{Error, Result};
 pub use mesh::TriMesh;

@@ -12,6 +12,9 @@ mod demo;
 mod inspect;
 mod map;
 mod repair;
+mod matrix;
+mod resample;
+mod sphere;
 
 /// Cortical surfaces of a cohort to one common sphere. Research use only:
 /// not a medical device; results need review by a trained analyst.
@@ -39,6 +42,12 @@ enum Command {
     Align(align::AlignArgs),
     /// Estimate a landmark template from a cohort of mapped spheres.
     Template(align::TemplateArgs),
+    /// Resample per-vertex maps from a subject sphere to a common target sphere.
+    Resample(resample::ResampleArgs),
+    /// Write a built-in target sphere (icosphere:K) as a surface file.
+    Sphere(sphere::SphereArgs),
+    /// Stack resampled maps of a cohort into one GIFTI (and CSV) matrix.
+    Matrix(matrix::MatrixArgs),
 }
 
 /// Run the command line and return the exit status.
@@ -52,6 +61,9 @@ pub fn main() -> ExitCode {
         Command::Map(args) => map::run(args),
         Command::Align(args) => align::run_align(args),
         Command::Template(args) => align::run_template(args),
+        Command::Resample(args) => resample::run(args),
+        Command::Sphere(args) => sphere::run(args),
+        Command::Matrix(args) => matrix::run(args),
     };
     match result {
         Ok(code) => code,
