@@ -144,7 +144,7 @@ fn main() {
         let r = &out.report;
         let tm = &r.times;
         println!(
-            "map {name:>5} ({} vertices, {} path): wall {wall:.2} s [checks {:.2}, delaunay {:.2}, distances {:.2}, solve {:.2} ({} evaluations {:.2}, assemble {:.2}, symbolic {:.2}, numeric {:.2}, solve {:.2}), layout {:.2}, verify {:.2}, metrics {:.2}], iterations {}, factorisations {} (symbolic {}), flips {}/{}/{}, boundary {}, peak RSS {:.0} MB",
+            "map {name:>5} ({} vertices, {} path): wall {wall:.2} s [checks {:.2}, delaunay {:.2}, distances {:.2}, solve {:.2} ({} evaluations {:.2}, assemble {:.2}, symbolic {:.2}, numeric {:.2}, solve {:.2}), layout {:.2} ({}), verify {:.2}, metrics {:.2}], iterations {}, factorisations {} (symbolic {}), flips {}/{}/{}, boundary {}, peak RSS {:.0} MB",
             r.vertices,
             r.path,
             tm.checks,
@@ -158,6 +158,7 @@ fn main() {
             r.solve_profile.numeric,
             r.solve_profile.solve,
             tm.layout,
+            r.layout_method,
             tm.verify,
             tm.metrics,
             r.iterations,

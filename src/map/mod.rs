@@ -179,8 +179,10 @@ pub struct MapReport {
     pub times: PhaseTimes,
     /// Number of disk boundary vertices (joined to the pole at the end).
     pub boundary_vertices: usize,
-    /// Largest layout residual.
+    /// Largest layout residual (unit-scale triangle equations).
     pub layout_residual: f64,
+    /// Layout method: `"harmonic"` or `"least-squares"`.
+    pub layout_method: String,
     /// The verification figures (residuals).
     pub verification: Verification,
     /// Per input face, the ratio of the singular values of the linear map
@@ -376,6 +378,38 @@ fn lay_out(
     Ok((lay, points))
 }
 
+/// The harmonic layout with the last Newton factor (see
+/// [`layout::layout_disk_harmonic`]); errors send the caller to [`lay_out`].
+fn lay_out_fast(
+    sol: &mut solver::Solution,
+    d: &[f64],
+    pole: u32,
+) -> Result<(layout::Layout, Vec<[f64; 3]>)> {
+    let u: Vec<f64> = sol.s.iter().zip(d).map(|(s, d)| s - d).collect();
+    let sc = Scaling {
+        u: &u,
+        pole,
+        t: sol.t,
+    };
+    let Some((factor, fvar)) = sol.newton.as_mut() else {
+        return Err(Error::Algorithm {
+            stage: "map: harmonic layout",
+            message: "no Newton factor".into(),
+        });
+    };
+    let lay = layout::layout_disk_harmonic(
+        &sol.tri,
+        &sc,
+        &sol.eval.angle,
+        &sol.eval.cot,
+        factor,
+        fvar,
+        1e-9,
+    )?;
+    let points = layout::project(&lay.z, pole);
+    Ok((lay, points))
+}
+
 fn verify_solution(
     sol: &solver::Solution,
     d: &[f64],
@@ -436,7 +470,8 @@ fn fast_path(
     // KKT of the guess: the held vertices must want to stay on their bounds
     // (disk angle below pi), checked by the verification's boundary test.
     let t = Instant::now();
-    let (lay, points) = lay_out(&sol, &d, pole)?;
+    let mut sol = sol;
+    let (lay, points) = lay_out_fast(&mut sol, &d, pole).or_else(|_| lay_out(&sol, &d, pole))?;
     times.layout = t.elapsed().as_secs_f64();
     let t = Instant::now();
     let ver = verify_solution(&sol, &d, pole, &lay, &points, opts).map_err(|e| {
@@ -521,6 +556,7 @@ fn run(mesh: &TriMesh, opts: &MapOptions, report: &mut MapReport) -> Result<Mapp
     report.flips_solve = sol.flips;
     report.solve_profile = sol.profile.clone();
     report.layout_residual = lay.residual;
+    report.layout_method = lay.method.clone();
     report.boundary_vertices = ver.boundary_vertices;
     report.verification = ver;
 
