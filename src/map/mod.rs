@@ -190,7 +190,9 @@ pub struct MapReport {
     pub angle_distortion: Percentiles,
     /// Per input face, `ln((A_sphere / total) / (A_input / total))`.
     pub log_area_ratio: Percentiles,
-    /// Input faces whose image on the sphere is inverted.
+    /// Input faces whose image on the sphere is inverted: the chord
+    /// triangle's normal points into the sphere (for images smaller than a
+    /// hemisphere, i.e. all but the coarsest meshes).
     pub inverted_faces: usize,
     /// The Newton iteration log.
     pub iteration_log: Vec<IterationRecord>,
