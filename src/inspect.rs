@@ -16,8 +16,8 @@
 //! - boundary loops (edges with one face), with their edge count and length;
 //! - non-manifold edges (more than two faces) and non-manifold vertices
 //!   (the faces around the vertex, joined across the edges they share, form
-//!   more than one fan: a "bow-tie"; found with a union-find over face
-//!   corners, O(F));
+//!   more than one fan: a "bow-tie"; found vertex by vertex with a small
+//!   union-find over the corners at the vertex, O(F) for bounded valence);
 //! - degenerate faces: a repeated vertex index, or `|(b - a) x (c - a)| <=
 //!   tol * L^2` with `L` the longest side, i.e. the height over the longest
 //!   side is at most `tol * L` (default `tol = 1e-10`, a relative tolerance
@@ -38,15 +38,16 @@
 //! faces, duplicate or unreferenced vertices; otherwise every failed
 //! condition is a [`Reason`] with a stable code.
 //!
-//! Cost: one sort of the `3F` face sides (in [`EdgeTable::new`]), a sort of
-//! the `V` positions, and near-linear union-find passes; no hash map per edge.
+//! Cost: a counting sort of the `3F` face sides by their smaller vertex (in
+//! [`EdgeTable::new`]), the same for the corners at each vertex, a sort of
+//! the `V` positions, and near-linear union-find passes; no hash map.
 //! Output is deterministic (no dependence on thread count or hashing).
 //!
 //! Hook for handle detection (a later stage): [`ComponentInfo::genus`] tells
 //! how many handles each component has.
 
-use crate::error::Result;
-use crate::mesh::topology::{face_components, EdgeTable, UnionFind};
+use crate::error::{Error, Result};
+use crate::mesh::topology::{face_components, EdgeTable};
 use crate::mesh::{cross, dot, norm, sub, TriMesh, Vec3};
 use serde::{Deserialize, Serialize};
 
@@ -153,8 +154,8 @@ pub struct LoopInfo {
     pub edges: usize,
     /// Sum of the edge lengths (mm).
     pub length_mm: f64,
-    /// False when the walk could not return to its start (a boundary broken
-    /// by inconsistent orientation or non-manifold vertices).
+    /// False when the walk could not return to its start vertex (a vertex
+    /// with an odd number of boundary edges, next to a non-manifold edge).
     pub closed: bool,
     /// The first vertices along the loop, in the faces' own direction.
     pub vertices: Vec<u32>,
@@ -295,68 +296,188 @@ impl ParityUnionFind {
     }
 }
 
-/// Corner of face `f` at the start (`end = false`) or end of side `slot`.
+/// Root of `x` in a small local forest (path halving).
 #[inline]
-fn corner(f: u32, slot: u8, end: bool) -> u32 {
-    3 * f
-        + if end {
-            (slot as u32 + 1) % 3
-        } else {
-            slot as u32
-        }
+fn local_find(parent: &mut [u32], mut x: u32) -> u32 {
+    while parent[x as usize] != x {
+        let p = parent[x as usize];
+        parent[x as usize] = parent[p as usize];
+        x = parent[x as usize];
+    }
+    x
 }
 
-/// Directed boundary walks: `(vertices, edges as (a, b), closed)`.
+/// Fast test for the usual vertex: following each corner `(next, prev, face)`
+/// to the corner whose `prev` is its `next` (the face across the edge to
+/// `next`, consistently oriented) visits all corners once and returns to the
+/// first. Then every corner shares an edge with its successor: one fan.
+/// False means "not shown", and the general count decides.
+fn single_cycle(cs: &[[u32; 3]]) -> bool {
+    let k = cs.len();
+    let mut cur = 0usize;
+    for step in 1..=k {
+        let want = cs[cur][0];
+        match cs.iter().position(|c| c[1] == want) {
+            Some(0) => return step == k,
+            Some(j) => cur = j,
+            None => return false,
+        }
+    }
+    false
+}
+
+/// Number of fans at each vertex: the faces around the vertex, joined when
+/// they share an edge at it (of any valence) or are the same face, fall into
+/// this many groups; more than one is a bow-tie. Vertex by vertex the corners
+/// are gathered (a counting sort, O(F)) and joined by a small union-find:
+/// pairwise for up to 32 corners, by sorting the neighbour keys above that.
+fn vertex_fans(mesh: &TriMesh) -> Vec<u32> {
+    let nv = mesh.n_vertices();
+    let mut start = vec![0u32; nv + 1];
+    for t in &mesh.faces {
+        for &v in t {
+            start[v as usize + 1] += 1;
+        }
+    }
+    for v in 0..nv {
+        start[v + 1] += start[v];
+    }
+    // Per corner: next vertex, previous vertex, face.
+    let mut fill = start.clone();
+    let mut corner = vec![[0u32; 3]; 3 * mesh.n_faces()];
+    for (f, t) in mesh.faces.iter().enumerate() {
+        for k in 0..3 {
+            let slot = &mut fill[t[k] as usize];
+            corner[*slot as usize] = [t[(k + 1) % 3], t[(k + 2) % 3], f as u32];
+            *slot += 1;
+        }
+    }
+    let mut fans = vec![0u32; nv];
+    let mut parent: Vec<u32> = Vec::new();
+    let mut keys: Vec<(u64, u32)> = Vec::new();
+    for v in 0..nv {
+        let cs = &corner[start[v] as usize..start[v + 1] as usize];
+        let k = cs.len();
+        if k <= 32 && single_cycle(cs) {
+            // The common case, an interior vertex of an oriented manifold.
+            fans[v] = 1;
+            continue;
+        }
+        parent.clear();
+        parent.extend(0..k as u32);
+        let mut groups = k as u32;
+        let mut join = |parent: &mut Vec<u32>, i: u32, j: u32| {
+            let (ri, rj) = (local_find(parent, i), local_find(parent, j));
+            if ri != rj {
+                parent[ri as usize] = rj;
+                groups -= 1;
+            }
+        };
+        let vv = v as u32;
+        if k <= 32 {
+            for i in 0..k {
+                let a = cs[i];
+                for (j, b) in cs.iter().enumerate().skip(i + 1) {
+                    let share = a[2] == b[2]
+                        || (a[0] != vv && (a[0] == b[0] || a[0] == b[1]))
+                        || (a[1] != vv && (a[1] == b[0] || a[1] == b[1]));
+                    if share {
+                        join(&mut parent, i as u32, j as u32);
+                    }
+                }
+            }
+        } else {
+            keys.clear();
+            for (i, c) in cs.iter().enumerate() {
+                let i = i as u32;
+                keys.push(((1u64 << 32) | c[2] as u64, i));
+                for &u in &c[..2] {
+                    if u != vv {
+                        keys.push((u as u64, i));
+                    }
+                }
+            }
+            keys.sort_unstable();
+            for w in keys.windows(2) {
+                if w[0].0 == w[1].0 {
+                    join(&mut parent, w[0].1, w[1].1);
+                }
+            }
+        }
+        fans[v] = groups;
+    }
+    fans
+}
+
+/// One walk along boundary edges.
 struct Walk {
+    /// The edges in walking order, each as (from, to).
     sides: Vec<(u32, u32)>,
+    /// The walk came back to its first vertex.
     closed: bool,
+    /// The face on the first edge (names the component).
     face: u32,
 }
 
+/// Boundary loops: walks along the edges with one face. From each vertex
+/// the walk continues along an unused boundary edge that its face traverses
+/// away from the vertex (so on a consistently oriented surface a loop keeps
+/// the faces on its left), and failing that along any unused boundary edge
+/// at the vertex, so that a flipped face on the boundary does not split a
+/// loop. Every boundary edge lies on exactly one walk.
 fn boundary_walks(mesh: &TriMesh, table: &EdgeTable) -> Vec<Walk> {
-    // Directed boundary sides a -> b as their face traverses them, with the face.
-    let mut out: Vec<(u32, u32, u32)> = Vec::new();
+    // Boundary sides a -> b as their face traverses them, with the face.
+    let mut sides: Vec<(u32, u32, u32)> = Vec::new();
     for e in 0..table.len() {
         if table.valence(e) == 1 {
             let inc = table.faces_of(e)[0];
             let t = mesh.faces[inc.face as usize];
             let s = inc.slot as usize;
-            out.push((t[s], t[(s + 1) % 3], inc.face));
+            sides.push((t[s], t[(s + 1) % 3], inc.face));
         }
     }
-    out.sort_unstable();
-    let mut used = vec![false; out.len()];
+    sides.sort_unstable();
+    // Both ends of every side: (vertex, leaves the vertex in face order?, side).
+    let mut ends: Vec<(u32, bool, u32)> = Vec::with_capacity(2 * sides.len());
+    for (i, &(a, b, _)) in sides.iter().enumerate() {
+        ends.push((a, false, i as u32)); // `false` sorts first: outgoing
+        ends.push((b, true, i as u32));
+    }
+    ends.sort_unstable();
+    let mut used = vec![false; sides.len()];
     let mut walks = Vec::new();
-    for start in 0..out.len() {
+    for start in 0..sides.len() {
         if used[start] {
             continue;
         }
-        let mut sides = Vec::new();
+        let (first, _, face) = sides[start];
+        let mut walk = Vec::new();
         let mut cur = start;
-        let (first, _, face) = out[start];
+        let mut from = first;
         let closed = loop {
             used[cur] = true;
-            let (a, b, _) = out[cur];
-            sides.push((a, b));
-            if b == first {
+            let (a, b, _) = sides[cur];
+            let to = if a == from { b } else { a };
+            walk.push((from, to));
+            if to == first {
                 break true;
             }
-            let mut k = out.partition_point(|&(x, _, _)| x < b);
-            let mut found = None;
-            while k < out.len() && out[k].0 == b {
-                if !used[k] {
-                    found = Some(k);
-                    break;
+            // Unused sides at `to`, outgoing ones first.
+            let k = ends.partition_point(|&(v, _, _)| v < to);
+            let next = ends[k..]
+                .iter()
+                .take_while(|&&(v, _, _)| v == to)
+                .find(|&&(_, _, i)| !used[i as usize]);
+            match next {
+                Some(&(_, _, i)) => {
+                    cur = i as usize;
+                    from = to;
                 }
-                k += 1;
-            }
-            match found {
-                Some(k) => cur = k,
                 None => break false,
             }
         };
         walks.push(Walk {
-            sides,
+            sides: walk,
             closed,
             face,
         });
@@ -373,75 +494,155 @@ fn exact_key(p: &Vec3) -> [u64; 3] {
 
 /// For each vertex `i` that has a lower-numbered vertex within `tol` of it,
 /// the pair `[j, i]` with the lowest such `j`, in increasing `i`.
+///
+/// Identical positions are grouped first by sorting (exact, -0 = +0); with
+/// `tol > 0` the distinct positions, each named by its lowest vertex, are
+/// then searched on a grid of cell size `tol` (see [`near_on_grid`]), so
+/// many vertices collapsed onto one point cost a sort, not a quadratic scan.
 fn duplicate_pairs(positions: &[Vec3], tol: f64) -> Vec<[u32; 2]> {
     let n = positions.len();
-    let mut order: Vec<u32> = (0..n as u32).collect();
-    let mut pairs = Vec::new();
-    if tol <= 0.0 || !tol.is_finite() {
-        let keys: Vec<[u64; 3]> = positions.iter().map(exact_key).collect();
-        order.sort_unstable_by_key(|&i| (keys[i as usize], i));
-        let mut k = 0;
-        while k < n {
-            let mut m = k + 1;
-            while m < n && keys[order[m] as usize] == keys[order[k] as usize] {
-                pairs.push([order[k], order[m]]);
-                m += 1;
-            }
-            k = m;
+    let mut keyed: Vec<([u64; 3], u32)> = positions
+        .iter()
+        .enumerate()
+        .map(|(i, p)| (exact_key(p), i as u32))
+        .collect();
+    keyed.sort_unstable();
+    // Lowest vertex at each position, and the distinct positions.
+    let mut rep_of = vec![0u32; n];
+    let mut reps: Vec<u32> = Vec::new();
+    let mut k = 0;
+    while k < n {
+        let r = keyed[k].1; // lowest index of its group (sorted by key, then index)
+        let mut m = k;
+        while m < n && keyed[m].0 == keyed[k].0 {
+            rep_of[keyed[m].1 as usize] = r;
+            m += 1;
         }
+        reps.push(r);
+        k = m;
+    }
+    let near = if tol > 0.0 && tol.is_finite() {
+        near_on_grid(positions, &reps, tol)
     } else {
-        let cell_of = |p: &Vec3| -> [i64; 3] {
-            [
-                (p[0] / tol).floor() as i64,
-                (p[1] / tol).floor() as i64,
-                (p[2] / tol).floor() as i64,
-            ]
+        vec![u32::MAX; n]
+    };
+    let mut pairs = Vec::new();
+    for i in 0..n {
+        let r = rep_of[i];
+        // Lowest partner: the group's first vertex (distance 0) or the lowest
+        // vertex of another position within `tol`, whichever is lower.
+        let j = if r as usize == i {
+            near[i]
+        } else {
+            r.min(near[r as usize])
         };
-        let cells: Vec<[i64; 3]> = positions.iter().map(cell_of).collect();
-        order.sort_unstable_by_key(|&i| (cells[i as usize], i));
-        let tol2 = tol * tol;
-        for i in 0..n {
-            let c = cells[i];
-            let mut best: Option<u32> = None;
-            for dx in -1i64..=1 {
-                for dy in -1i64..=1 {
-                    for dz in -1i64..=1 {
-                        let q = [
-                            c[0].saturating_add(dx),
-                            c[1].saturating_add(dy),
-                            c[2].saturating_add(dz),
-                        ];
-                        let lo = order.partition_point(|&j| cells[j as usize] < q);
-                        for &j in order[lo..].iter().take_while(|&&j| cells[j as usize] == q) {
-                            if (j as usize) >= i {
-                                break; // sorted by index within a cell
-                            }
-                            let d = sub(positions[i], positions[j as usize]);
-                            if dot(d, d) <= tol2 && best.is_none_or(|b| j < b) {
-                                best = Some(j);
-                            }
-                        }
-                    }
-                }
-            }
-            if let Some(j) = best {
-                pairs.push([j, i as u32]);
-            }
+        if (j as usize) < i {
+            pairs.push([j, i as u32]);
         }
     }
-    pairs.sort_unstable_by_key(|p| p[1]);
     pairs
 }
 
+/// For each representative vertex `r` in `reps` (distinct positions), the
+/// lowest other representative within `tol` (at index `r` of the result;
+/// `u32::MAX` if none).
+///
+/// Grid of cell size `tol`: a partner lies in one of the 27 cells around a
+/// vertex's cell. Cells are sorted by (x, y, z), so for each (dx, dy) the
+/// three cells z - 1..=z + 1 are one contiguous run, whose start only moves
+/// forward as the occupied cells are visited in order (a translation keeps
+/// the order): nine cursors sweep the list, O(V) after the sort. Within a
+/// cell the vertices are in increasing order, so the scan for a vertex stops
+/// at the first partner found.
+fn near_on_grid(positions: &[Vec3], reps: &[u32], tol: f64) -> Vec<u32> {
+    let cell_of = |p: &Vec3| -> [i64; 3] {
+        [
+            (p[0] / tol).floor() as i64,
+            (p[1] / tol).floor() as i64,
+            (p[2] / tol).floor() as i64,
+        ]
+    };
+    let mut sorted: Vec<([i64; 3], u32)> = reps
+        .iter()
+        .map(|&r| (cell_of(&positions[r as usize]), r))
+        .collect();
+    sorted.sort_unstable();
+    let m = sorted.len();
+    let tol2 = tol * tol;
+    let mut near = vec![u32::MAX; positions.len()];
+    let mut cursor = [0usize; 9];
+    let mut g = 0;
+    while g < m {
+        let c = sorted[g].0;
+        let g_end = g + sorted[g..].partition_point(|x| x.0 == c);
+        for (k, cur) in cursor.iter_mut().enumerate() {
+            let (dx, dy) = (k as i64 / 3 - 1, k as i64 % 3 - 1);
+            let (x, y) = (c[0].saturating_add(dx), c[1].saturating_add(dy));
+            let lo_key = [x, y, c[2].saturating_sub(1)];
+            let hi_key = [x, y, c[2].saturating_add(1)];
+            while *cur < m && sorted[*cur].0 < lo_key {
+                *cur += 1;
+            }
+            // Up to three cells in this run, each scanned in index order.
+            let mut seg = *cur;
+            while seg < m && sorted[seg].0 <= hi_key {
+                let cell = sorted[seg].0;
+                let seg_end = seg + sorted[seg..].partition_point(|x| x.0 == cell);
+                for &(_, i) in &sorted[g..g_end] {
+                    for &(_, j) in &sorted[seg..seg_end] {
+                        if j >= near[i as usize] {
+                            break;
+                        }
+                        if j == i {
+                            continue;
+                        }
+                        let d = sub(positions[i as usize], positions[j as usize]);
+                        if dot(d, d) <= tol2 {
+                            near[i as usize] = j;
+                            break;
+                        }
+                    }
+                }
+                seg = seg_end;
+            }
+        }
+        g = g_end;
+    }
+    near
+}
+
 /// Inspect `mesh`. The mesh is validated first (indices in range, finite
-/// coordinates, not empty); an invalid mesh gives [`crate::Error::Invalid`].
+/// coordinates, not empty); an invalid mesh or option gives
+/// [`Error::Invalid`].
 pub fn inspect(mesh: &TriMesh, opts: &InspectOptions) -> Result<Inspection> {
     mesh.validate()?;
+    if !(opts.duplicate_tolerance_mm >= 0.0 && opts.duplicate_tolerance_mm.is_finite()) {
+        return Err(Error::Invalid(format!(
+            "duplicate tolerance {} mm; expected a finite number >= 0",
+            opts.duplicate_tolerance_mm
+        )));
+    }
+    if !(opts.degenerate_relative_tolerance >= 0.0 && opts.degenerate_relative_tolerance < 1.0) {
+        return Err(Error::Invalid(format!(
+            "degenerate-face relative tolerance {}; expected a number in [0, 1)",
+            opts.degenerate_relative_tolerance
+        )));
+    }
     let nv = mesh.n_vertices();
     let nf = mesh.n_faces();
-    let table = EdgeTable::new(mesh);
+    // Four independent passes, two by two on the thread pool; each is
+    // sequential and deterministic, so the report does not depend on the
+    // number of threads.
+    let ((table, (face_comp, ncomp)), (fans, duplicates)) = rayon::join(
+        || (EdgeTable::new(mesh), face_components(mesh)),
+        || {
+            (
+                vertex_fans(mesh),
+                duplicate_pairs(&mesh.positions, opts.duplicate_tolerance_mm),
+            )
+        },
+    );
     let ne = table.len();
-    let (face_comp, ncomp) = face_components(mesh);
 
     // Per-vertex component; unreferenced vertices keep u32::MAX.
     let mut vertex_comp = vec![u32::MAX; nv];
@@ -452,9 +653,7 @@ pub fn inspect(mesh: &TriMesh, opts: &InspectOptions) -> Result<Inspection> {
     }
 
     // Edges: classification, orientability and corner fans.
-    let mut parity = ParityUnionFind::new(nf);
     let mut comp_orientable = vec![true; ncomp];
-    let mut corners = UnionFind::new(3 * nf);
     let mut non_manifold_edges = Vec::new();
     let mut inconsistent_edges = Vec::new();
     let mut comp_edges = vec![0usize; ncomp];
@@ -477,45 +676,29 @@ pub fn inspect(mesh: &TriMesh, opts: &InspectOptions) -> Result<Inspection> {
                     inconsistent_edges.push(table.edges[e]);
                     comp_inconsistent[c] = true;
                 }
-                if !parity.union(inc[0].face, inc[1].face, u8::from(same)) {
-                    comp_orientable[c] = false;
-                }
             }
             _ => {
                 non_manifold_edges.push(table.edges[e]);
                 comp_nm[c] = true;
             }
         }
-        // Join the corners at both ends across this edge, whatever its valence.
-        let first = inc[0];
-        let fa = forward(&first);
-        for other in &inc[1..] {
-            let fo = forward(other);
-            // Corner at `a` is the side's start when it runs a -> b.
-            corners.union(
-                corner(first.face, first.slot, !fa),
-                corner(other.face, other.slot, !fo),
-            );
-            corners.union(
-                corner(first.face, first.slot, fa),
-                corner(other.face, other.slot, fo),
-            );
-        }
     }
-    // A face with a repeated index touches its vertex once.
-    for (f, t) in mesh.faces.iter().enumerate() {
-        let f = f as u32;
-        for (i, j) in [(0, 1), (1, 2), (0, 2)] {
-            if t[i] == t[j] {
-                corners.union(3 * f + i as u32, 3 * f + j as u32);
+    // Orientability: only in question where some edge is inconsistent (a
+    // consistent orientation is its own proof). Faces across manifold edges
+    // must agree up to the parity of a flip; a contradiction means the
+    // component is not orientable.
+    if !inconsistent_edges.is_empty() {
+        let mut parity = ParityUnionFind::new(nf);
+        for e in 0..ne {
+            let inc = table.faces_of(e);
+            if let [i0, i1] = inc {
+                let a = table.edges[e][0];
+                let f0 = mesh.faces[i0.face as usize][i0.slot as usize] == a;
+                let f1 = mesh.faces[i1.face as usize][i1.slot as usize] == a;
+                if !parity.union(i0.face, i1.face, u8::from(f0 == f1)) {
+                    comp_orientable[face_comp[i0.face as usize] as usize] = false;
+                }
             }
-        }
-    }
-    let mut fans = vec![0u32; nv];
-    for c in 0..3 * nf as u32 {
-        if corners.find(c) == c {
-            let v = mesh.faces[(c / 3) as usize][(c % 3) as usize];
-            fans[v as usize] += 1;
         }
     }
     let non_manifold_vertices: Vec<u32> =
@@ -551,7 +734,8 @@ pub fn inspect(mesh: &TriMesh, opts: &InspectOptions) -> Result<Inspection> {
             }
         })
         .collect();
-    let boundary_length: f64 = loops.iter().map(|l| l.length_mm).sum();
+    // A fold from +0 (an empty f64 `sum` is -0, which would print as "-0.0").
+    let boundary_length = loops.iter().fold(0.0, |acc, l| acc + l.length_mm);
     let n_loops = loops.len();
     loops.sort_by(|x, y| {
         y.edges
@@ -648,8 +832,6 @@ pub fn inspect(mesh: &TriMesh, opts: &InspectOptions) -> Result<Inspection> {
     let all_closed = components.iter().all(|c| c.closed);
     let enclosed_volume_mm3 = all_closed.then(|| comp_volume.iter().sum());
     let area_mm2 = comp_area.iter().sum();
-
-    let duplicates = duplicate_pairs(&mesh.positions, opts.duplicate_tolerance_mm);
 
     let mut report = Inspection {
         schema_version: SCHEMA_VERSION,
@@ -839,145 +1021,263 @@ fn orientation_word(o: Orientation) -> &'static str {
     }
 }
 
-/// A compact text summary of `r`, headed by `title` (e.g. the file name).
+/// A compact text summary of `r`, headed by `title` (e.g. the file name):
+/// one finding per line, label in a 22-character column.
 pub fn render_text(r: &Inspection, title: &str) -> String {
-    use std::fmt::Write;
-    let mut s = String::new();
-    let _ = writeln!(s, "surface      {title}");
-    let _ = writeln!(
-        s,
-        "size         {} vertices, {} edges, {} faces; V-E+F = {}",
-        r.vertices, r.edges, r.faces, r.euler_characteristic
+    let mut lines: Vec<(String, String)> = Vec::new();
+    let mut row = |label: &str, value: String| lines.push((label.to_string(), value));
+    row("surface", title.to_string());
+    row(
+        "size",
+        format!(
+            "{} vertices, {} edges, {} faces; V - E + F = {}",
+            r.vertices, r.edges, r.faces, r.euler_characteristic
+        ),
     );
-    let _ = writeln!(s, "pieces       {}", r.components.count);
+    row("pieces", r.components.count.to_string());
     for c in &r.components.listed {
         let genus = c
             .genus
             .map_or_else(|| "genus n/a".to_string(), |g| format!("genus {g}"));
-        let _ = writeln!(
-            s,
-            "  [{}]        {} V, {} F, chi {}, {}, {} loop(s), {}{}, {}, area {:.2} mm2",
-            c.index,
-            c.vertices,
-            c.faces,
-            c.euler_characteristic,
-            genus,
-            c.boundary_loops,
-            if c.manifold {
-                "manifold"
-            } else {
-                "NON-MANIFOLD"
-            },
-            if c.orientable { "" } else { ", non-orientable" },
-            orientation_word(c.orientation),
-            c.area_mm2
+        let mut traits = vec![if c.closed {
+            "closed".to_string()
+        } else {
+            format!("{} loop(s)", c.boundary_loops)
+        }];
+        if !c.manifold {
+            traits.push("non-manifold".into());
+        }
+        if !c.orientable {
+            traits.push("non-orientable".into());
+        }
+        traits.push(orientation_word(c.orientation).into());
+        row(
+            &format!("  piece {}", c.index),
+            format!(
+                "{} V, {} F, chi {}, {}, {}, {:.2} mm2",
+                c.vertices,
+                c.faces,
+                c.euler_characteristic,
+                genus,
+                traits.join(", "),
+                c.area_mm2
+            ),
         );
     }
     if r.components.count > r.components.listed.len() {
-        let _ = writeln!(
-            s,
-            "  ... {} more",
-            r.components.count - r.components.listed.len()
+        row(
+            "  ...",
+            format!("{} more", r.components.count - r.components.listed.len()),
         );
     }
     if r.boundary.loops == 0 {
-        let _ = writeln!(s, "boundary     none (closed)");
+        row("boundary", "none".into());
     } else {
-        let _ = writeln!(
-            s,
-            "boundary     {} loop(s), {} edges, {:.3} mm",
-            r.boundary.loops, r.boundary.edges, r.boundary.length_mm
+        row(
+            "boundary",
+            format!(
+                "{} loop(s), {} edges, {:.3} mm",
+                r.boundary.loops, r.boundary.edges, r.boundary.length_mm
+            ),
         );
         for l in &r.boundary.listed {
-            let _ = writeln!(
-                s,
-                "  piece {}    {} edges, {:.3} mm{}, from vertices {}{}",
-                l.component,
-                l.edges,
-                l.length_mm,
-                if l.closed { "" } else { " (not closed)" },
-                fmt_list(&l.vertices),
-                if l.edges > l.vertices.len() {
-                    " ..."
-                } else {
-                    ""
-                }
+            row(
+                &format!("  on piece {}", l.component),
+                format!(
+                    "{} edges, {:.3} mm{}, through {}{}",
+                    l.edges,
+                    l.length_mm,
+                    if l.closed { "" } else { " (not closed)" },
+                    fmt_list(&l.vertices),
+                    if l.edges > l.vertices.len() {
+                        " ..."
+                    } else {
+                        ""
+                    }
+                ),
             );
         }
     }
-    let more = |count: usize, listed: usize| if count > listed { " ..." } else { "" };
-    let mut check = |label: &str, count: usize, listed: String, n_listed: usize| {
+    let finding = |count: usize, n_listed: usize, listed: String| {
         if count == 0 {
-            let _ = writeln!(s, "{label:<23}0");
+            "0".to_string()
         } else {
-            let _ = writeln!(s, "{label:<23}{count}: {listed}{}", more(count, n_listed));
+            let more = if count > n_listed { " ..." } else { "" };
+            format!("{count}: {listed}{more}")
         }
     };
     let x = &r.non_manifold_edges;
-    check(
+    row(
         "non-manifold edges",
-        x.count,
-        fmt_pairs(&x.listed),
-        x.listed.len(),
+        finding(x.count, x.listed.len(), fmt_pairs(&x.listed)),
     );
     let x = &r.non_manifold_vertices;
-    check(
+    row(
         "non-manifold vertices",
-        x.count,
-        fmt_list(&x.listed),
-        x.listed.len(),
+        finding(x.count, x.listed.len(), fmt_list(&x.listed)),
     );
     let x = &r.inconsistent_edges;
-    check(
+    row(
         "flipped edges",
-        x.count,
-        fmt_pairs(&x.listed),
-        x.listed.len(),
+        finding(x.count, x.listed.len(), fmt_pairs(&x.listed)),
     );
     let x = &r.degenerate_faces;
-    check(
+    row(
         "degenerate faces",
-        x.count,
-        fmt_list(&x.listed),
-        x.listed.len(),
+        finding(x.count, x.listed.len(), fmt_list(&x.listed)),
     );
     let x = &r.duplicate_vertices;
-    check(
+    row(
         "duplicate vertices",
-        x.count,
-        fmt_pairs(&x.listed),
-        x.listed.len(),
+        finding(x.count, x.listed.len(), fmt_pairs(&x.listed)),
     );
     let x = &r.unreferenced_vertices;
-    check(
+    row(
         "unused vertices",
-        x.count,
-        fmt_list(&x.listed),
-        x.listed.len(),
+        finding(x.count, x.listed.len(), fmt_list(&x.listed)),
     );
-    let _ = writeln!(s, "orientation  {}", orientation_word(r.orientation));
-    let _ = writeln!(s, "area         {:.3} mm2", r.area_mm2);
-    match r.enclosed_volume_mm3 {
-        Some(v) => {
-            let _ = writeln!(s, "volume       {v:.3} mm3");
-        }
-        None => {
-            let _ = writeln!(s, "volume       n/a (open)");
-        }
-    }
+    row("orientation", orientation_word(r.orientation).into());
+    row("area", format!("{:.3} mm2", r.area_mm2));
+    row(
+        "volume",
+        match r.enclosed_volume_mm3 {
+            Some(v) => format!("{v:.3} mm3"),
+            None => "n/a (open)".into(),
+        },
+    );
     let b = &r.bounding_box;
-    let _ = writeln!(
-        s,
-        "extent       x {:.3}..{:.3}  y {:.3}..{:.3}  z {:.3}..{:.3} mm",
-        b.min[0], b.max[0], b.min[1], b.max[1], b.min[2], b.max[2]
+    row(
+        "extent",
+        format!(
+            "x {:.3}..{:.3}, y {:.3}..{:.3}, z {:.3}..{:.3} mm",
+            b.min[0], b.max[0], b.min[1], b.max[1], b.min[2], b.max[2]
+        ),
     );
     if r.ready_to_map {
-        let _ = writeln!(s, "verdict      ready to map");
+        row("verdict", "ready to map".into());
     } else {
-        let _ = writeln!(s, "verdict      NOT ready to map");
+        row("verdict", "NOT ready to map".into());
         for reason in &r.reasons {
-            let _ = writeln!(s, "  - {}: {}", reason.code, reason.message);
+            row(&format!("  {}", reason.code), reason.message.clone());
         }
     }
-    s
+    let mut out = String::new();
+    for (label, value) in lines {
+        out.push_str(&format!("{label:<22} {value}\n"));
+    }
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Closed fan of `n` triangles around vertex 0 (a cone apex), vertices
+    /// numbered from `first`.
+    fn fan(n: u32, first: u32, faces: &mut Vec<[u32; 3]>) {
+        for j in 0..n {
+            faces.push([0, first + j, first + (j + 1) % n]);
+        }
+    }
+
+    #[test]
+    fn fans_small_and_large_valence() {
+        // Two closed fans meeting at vertex 0: a bow-tie, for valence 2 x 6
+        // (pairwise path) and 2 x 20 (sorting path).
+        for n in [6u32, 20] {
+            let mut faces = Vec::new();
+            fan(n, 1, &mut faces);
+            fan(n, 1 + n, &mut faces);
+            let positions = vec![[0.0; 3]; 1 + 2 * n as usize];
+            let fans = vertex_fans(&TriMesh { positions, faces });
+            assert_eq!(fans[0], 2, "n = {n}");
+            assert!(fans[1..].iter().all(|&k| k == 1));
+        }
+        // One closed fan of 40: a single fan through the sorting path.
+        let mut faces = Vec::new();
+        fan(40, 1, &mut faces);
+        let fans = vertex_fans(&TriMesh {
+            positions: vec![[0.0; 3]; 41],
+            faces,
+        });
+        assert_eq!(fans[0], 1);
+        // Every vertex of a sphere is one fan, through the fast test or,
+        // around a flipped face, through the general count.
+        let mut m = crate::mesh::shapes::icosphere(2, 1.0);
+        assert!(vertex_fans(&m).iter().all(|&k| k == 1));
+        m.faces[5].swap(0, 1);
+        assert!(!single_cycle(&[[1, 2, 0], [2, 1, 1]][..1]));
+        assert!(vertex_fans(&m).iter().all(|&k| k == 1));
+        // A face with all three corners at one vertex is one fan.
+        let fans = vertex_fans(&TriMesh {
+            positions: vec![[0.0; 3]; 1],
+            faces: vec![[0, 0, 0]],
+        });
+        assert_eq!(fans[0], 1);
+    }
+
+    #[test]
+    fn grid_duplicate_search_equals_brute_force() {
+        // Seeded point cloud (a 64-bit LCG, Knuth's MMIX constants) on a
+        // coarse lattice so that many points fall within the tolerance.
+        let mut state = 0x2545_f491_4f6c_dd1du64;
+        let mut next = || {
+            state = state
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            ((state >> 33) % 40) as f64 * 0.05 - 1.0
+        };
+        let pts: Vec<Vec3> = (0..600).map(|_| [next(), next(), next()]).collect();
+        for tol in [0.0, 0.05, 0.07, 0.2] {
+            let mut brute = Vec::new();
+            for i in 0..pts.len() {
+                let d2 = |j: usize| {
+                    let d = sub(pts[i], pts[j]);
+                    dot(d, d)
+                };
+                if let Some(j) = (0..i).find(|&j| {
+                    if tol == 0.0 {
+                        pts[i] == pts[j]
+                    } else {
+                        d2(j) <= tol * tol
+                    }
+                }) {
+                    brute.push([j as u32, i as u32]);
+                }
+            }
+            assert!(!brute.is_empty());
+            assert_eq!(duplicate_pairs(&pts, tol), brute, "tol {tol}");
+        }
+    }
+
+    #[test]
+    fn collapsed_vertices_pair_with_the_first() {
+        // 5000 vertices on one point, 5000 on another 1.5 tol away: every
+        // vertex pairs with the first of its point; the points are not
+        // within the tolerance of each other.
+        let tol = 0.01;
+        let mut pts = vec![[1.0, 2.0, 3.0]; 5000];
+        pts.extend(vec![[1.0 + 1.5 * tol, 2.0, 3.0]; 5000]);
+        for t in [0.0, tol] {
+            let pairs = duplicate_pairs(&pts, t);
+            assert_eq!(pairs.len(), 9998);
+            assert!(pairs[..4999].iter().all(|&[j, _]| j == 0));
+            assert!(pairs[4999..].iter().all(|&[j, _]| j == 5000));
+        }
+        // At 2 tol the two points merge: all pair with vertex 0.
+        let pairs = duplicate_pairs(&pts, 2.0 * tol);
+        assert_eq!(pairs.len(), 9999);
+        assert!(pairs.iter().all(|&[j, _]| j == 0));
+    }
+
+    #[test]
+    fn parity_union_find_detects_odd_cycles() {
+        let mut p = ParityUnionFind::new(4);
+        assert!(p.union(0, 1, 1));
+        assert!(p.union(1, 2, 1));
+        assert!(p.union(2, 3, 0));
+        assert_eq!(p.find(3).1 ^ p.find(0).1, 0);
+        assert!(p.union(3, 0, 0));
+        assert!(!p.union(0, 2, 1), "0 and 2 have even parity");
+    }
 }

@@ -65,7 +65,7 @@ fn rich() -> Gifti {
         .set("Note", "unicode: \u{00e9}\u{00df}\u{4e2d} tab\there");
     let mut t = CoordTransform::identity_unknown();
     t.data_space = "NIFTI_XFORM_SCANNER_ANAT".into();
-    t.transformed_space = "NIFTI_XFORM_TALAIRACH".into();
+    t.transformed_space = "NIFTI_XFORM_ALIGNED_ANAT".into();
     t.matrix = [
         [0.9, 0.1, 0.0, -1.25],
         [-0.1, 0.9, 0.05, 3.5],
@@ -1084,4 +1084,57 @@ fn writer_refuses_what_xml_cannot_carry() {
             .contains("DataArray 0 (NIFTI_INTENT_POINTSET)"),
         "{e}"
     );
+}
+
+#[test]
+fn regression_empty_array_with_huge_trailing_dims() {
+    // Dim0 = 0 makes the total 0 even though Dim1 * Dim2 overflows; reading
+    // and re-writing must not overflow anywhere.
+    let xml = r#"<GIFTI NumberOfDataArrays="1"><DataArray Intent="NIFTI_INTENT_NONE" DataType="NIFTI_TYPE_FLOAT32"
+ Dimensionality="3" Dim0="0" Dim1="1099511627776" Dim2="1099511627776" Encoding="ASCII"><Data></Data></DataArray></GIFTI>"#;
+    let g = gifti::parse(xml.as_bytes(), vpath()).unwrap();
+    assert_eq!(g.arrays[0].data.len(), 0);
+    for opts in all_options() {
+        let back = gifti::parse(&gifti::to_bytes(&g, &opts).unwrap(), vpath()).unwrap();
+        assert_eq!(back, g);
+    }
+    // Dimensions whose product overflows with data present are refused.
+    let big = xml.replace("Dim0=\"0\"", "Dim0=\"1099511627776\"");
+    assert_bad(
+        gifti::parse(big.as_bytes(), vpath()),
+        vpath(),
+        "DataArray 0 (NIFTI_INTENT_NONE)",
+        &["overflow"],
+    );
+}
+
+/// Files for tests/reference/test_gifti_nibabel.py: the rich file in every
+/// encoding x byte order x index order, written to the folder named by
+/// HOROSPHERE_ARTIFACTS (or a scratch folder, removed afterwards). Each is
+/// read back here; nibabel then checks that it reads them all alike.
+#[test]
+fn artifacts_for_reference_checks() {
+    let (dir, keep) = match std::env::var_os("HOROSPHERE_ARTIFACTS") {
+        Some(d) => (PathBuf::from(d).join("gifti"), true),
+        None => (scratch("artifacts"), false),
+    };
+    std::fs::create_dir_all(&dir).unwrap();
+    let g = rich();
+    let mut names = Vec::new();
+    for opts in all_options() {
+        let name = format!(
+            "rich_{}_{}_{}.gii",
+            opts.encoding.as_str(),
+            opts.byte_order.as_str(),
+            opts.index_order.as_str()
+        );
+        let p = dir.join(&name);
+        gifti::write(&p, &g, &opts).unwrap();
+        assert_eq!(gifti::read(&p).unwrap(), g, "{name}");
+        names.push(name);
+    }
+    assert_eq!(names.len(), 12);
+    if !keep {
+        std::fs::remove_dir_all(&dir).unwrap();
+    }
 }

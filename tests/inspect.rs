@@ -144,6 +144,11 @@ fn icosphere_is_a_ready_genus_zero_sphere() {
     assert!(c.manifold && c.orientable);
     assert_eq!(r.orientation, Orientation::Outward);
     assert!(r.ready_to_map && r.reasons.is_empty(), "{:?}", r.reasons);
+    assert_eq!(
+        r.boundary.length_mm.to_bits(),
+        0.0f64.to_bits(),
+        "+0, not -0"
+    );
     // An inscribed polyhedron: volume and area just below the sphere's
     // (4/3 pi R^3, 4 pi R^2), within 1.5 % at 642 vertices.
     let v = r.enclosed_volume_mm3.unwrap();
@@ -245,6 +250,25 @@ fn disk_has_one_boundary_loop_of_the_polygon_length() {
     assert_eq!(r.enclosed_volume_mm3, None);
     assert_eq!(r.orientation, Orientation::Undetermined);
     assert_eq!(codes(&r), vec!["open"]);
+}
+
+#[test]
+fn flipped_face_on_the_boundary_keeps_one_loop() {
+    // A disk whose boundary runs through a flipped face: still one closed
+    // loop of 48 edges, so chi = 1 = 2 - 2g - 1 still gives genus 0.
+    let mut m = disk(20.0, 3, 48);
+    // The second-last face is [ring 2 #47, ring 3 #47, ring 3 #0]: its side
+    // ring 3 #47 -> #0 is on the boundary.
+    let f = m.n_faces() - 2;
+    assert_eq!(m.faces[f][1..], [1 + 2 * 48 + 47, 1 + 2 * 48]);
+    m.faces[f].swap(1, 2);
+    let r = run(&m);
+    assert_eq!(r.boundary.loops, 1);
+    let l = &r.boundary.listed[0];
+    assert!(l.closed && l.edges == 48);
+    assert!(rel(l.length_mm, inscribed_perimeter(20.0, 48)) < 1e-12);
+    assert_eq!(r.components.listed[0].genus, Some(0));
+    assert_eq!(codes(&r), vec!["open", "inconsistent_orientation"]);
 }
 
 #[test]
@@ -535,6 +559,20 @@ fn invalid_mesh_is_an_error_not_a_panic() {
         faces: vec![[0, 1, 3]],
     };
     assert!(inspect(&m, &InspectOptions::default()).is_err());
+    let m = icosphere(0, 1.0);
+    for (dup, deg) in [
+        (-1.0, 1e-10),
+        (f64::NAN, 1e-10),
+        (0.0, -1.0),
+        (0.0, f64::NAN),
+    ] {
+        let opts = InspectOptions {
+            duplicate_tolerance_mm: dup,
+            degenerate_relative_tolerance: deg,
+            ..InspectOptions::default()
+        };
+        assert!(inspect(&m, &opts).is_err(), "{dup} {deg}");
+    }
 }
 
 // ---- command line and JSON -----------------------------------------------
@@ -578,7 +616,7 @@ fn command_line_json_text_and_status() {
     assert!(out.status.success());
     let text = String::from_utf8(out.stdout).unwrap();
     assert!(
-        text.contains("NOT ready to map") && text.contains("genus: "),
+        text.contains("NOT ready to map") && text.contains("\n  genus "),
         "{text}"
     );
     let out = horosphere(&[
@@ -629,4 +667,28 @@ fn every_json_field_is_documented() {
     let mut missing = Vec::new();
     walk(&json, &doc, &mut missing);
     assert!(missing.is_empty(), "undocumented fields: {missing:?}");
+}
+
+#[test]
+fn report_is_identical_whatever_the_thread_count() {
+    let mut m = union(&[
+        bow_tie(),
+        translated(&torus(3.0, 1.0, 20, 10), [9.0, 0.0, 0.0]),
+    ]);
+    m.faces[3].swap(0, 1);
+    let opts = InspectOptions {
+        duplicate_tolerance_mm: 0.3,
+        ..InspectOptions::default()
+    };
+    let json = |threads: usize| {
+        let pool = rayon::ThreadPoolBuilder::new()
+            .num_threads(threads)
+            .build()
+            .unwrap();
+        let r = pool.install(|| inspect(&m, &opts).unwrap());
+        serde_json::to_string(&r).unwrap()
+    };
+    let one = json(1);
+    assert_eq!(one, json(2));
+    assert_eq!(one, json(4));
 }

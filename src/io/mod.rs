@@ -2,7 +2,7 @@
 //!
 //! In: paths. Out: [`TriMesh`]es, per-vertex data and tables, or files.
 //! Invariants: a reader either returns validated data or an
-//! [`Error::BadFile`](crate::error::Error::BadFile) naming the file, the
+//! [`Error::BadFile`] naming the file, the
 //! element and what was expected; a writer never leaves a half-written file
 //! (everything goes through [`atomic::write_atomic`]: temporary file in the
 //! destination folder, then rename).
@@ -62,8 +62,9 @@ impl MeshFormat {
         }
     }
 
-    /// The format announced by the first bytes of a file: `<?xml` or
-    /// `<GIFTI` (after an optional byte-order mark and white space) for
+    /// The format announced by the first bytes of a file: `<?xml`,
+    /// `<!DOCTYPE GIFTI` or `<GIFTI` (after an optional byte-order mark and
+    /// white space) for
     /// GIFTI, a first line `ply` for PLY, a first token ending in `OFF` for
     /// OFF. OBJ has no magic bytes.
     pub fn from_magic(head: &[u8]) -> Option<MeshFormat> {
@@ -73,7 +74,10 @@ impl MeshFormat {
             .position(|b| !b.is_ascii_whitespace())
             .unwrap_or(head.len());
         let body = &head[start..];
-        if body.starts_with(b"<?xml") || body.starts_with(b"<GIFTI") {
+        if body.starts_with(b"<?xml")
+            || body.starts_with(b"<GIFTI")
+            || body.starts_with(b"<!DOCTYPE GIFTI")
+        {
             return Some(MeshFormat::Gifti);
         }
         if head.starts_with(b"ply\n") || head.starts_with(b"ply\r\n") {
@@ -320,6 +324,80 @@ mod tests {
             }
         }
         std::fs::remove_dir_all(&dir).unwrap();
+    }
+
+    /// Seeded mutations of valid files (byte changes, digit runs, cuts,
+    /// duplicated spans): every reader returns `Ok` or `Err`, never panics,
+    /// and never allocates beyond what the file size allows (a huge
+    /// declared count must be refused by the size check, or the test would
+    /// abort on allocation).
+    #[test]
+    fn mutated_files_never_panic() {
+        let m = icosphere(0, 2.5);
+        let mut inputs: Vec<(&str, Vec<u8>)> = Vec::new();
+        let mut b = Vec::new();
+        obj::write_to(&mut b, &m).unwrap();
+        inputs.push(("obj", b));
+        let mut b = Vec::new();
+        off::write_to(&mut b, &m).unwrap();
+        inputs.push(("off", b));
+        for enc in [
+            ply::PlyEncoding::Ascii,
+            ply::PlyEncoding::BinaryLittleEndian,
+            ply::PlyEncoding::BinaryBigEndian,
+        ] {
+            let mut b = Vec::new();
+            ply::write_to(&mut b, &m, enc).unwrap();
+            inputs.push(("ply", b));
+        }
+        // 64-bit LCG (Knuth's MMIX constants), fixed seed.
+        let mut state = 0x9e37_79b9_7f4a_7c15u64;
+        let mut rand = |n: usize| {
+            state = state
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            ((state >> 33) as usize) % n.max(1)
+        };
+        let path = Path::new("fuzz");
+        let mut errors = 0;
+        for (kind, good) in &inputs {
+            for _ in 0..1500 {
+                let mut b = good.clone();
+                for _ in 0..1 + rand(4) {
+                    let at = rand(b.len());
+                    match rand(5) {
+                        0 => b[at] = rand(256) as u8,
+                        1 => b[at] = b"0123456789-. \nexnaif"[rand(20)],
+                        2 => b.truncate(at),
+                        3 => {
+                            let run: Vec<u8> = (0..1 + rand(12)).map(|_| b'9').collect();
+                            b.splice(at..at, run);
+                        }
+                        _ => {
+                            let end = (at + rand(16)).min(b.len());
+                            let span = b[at..end].to_vec();
+                            b.splice(at..at, span);
+                        }
+                    }
+                    if b.is_empty() {
+                        break;
+                    }
+                }
+                let r = match *kind {
+                    "obj" => obj::parse(path, &b),
+                    "off" => off::parse(path, &b),
+                    _ => ply::parse(path, &b),
+                };
+                if let Err(e) = r {
+                    errors += 1;
+                    assert!(e.to_string().starts_with("fuzz: "), "{e}");
+                }
+            }
+        }
+        assert!(
+            errors > 1000,
+            "the mutations should mostly break the files: {errors}"
+        );
     }
 
     #[test]

@@ -192,7 +192,7 @@ pub fn parse(path: &Path, bytes: &[u8]) -> Result<TriMesh> {
                 format!("face {i} has {k} corners; expected at least 3"),
             ));
         }
-        if tokens.len() < k + 1 {
+        if tokens.len() - 1 < k {
             return Err(Error::bad_file(
                 path,
                 element,
@@ -329,6 +329,8 @@ mod tests {
         assert!(e.contains("2 corners"), "{e}");
         let e = err("OFF\n3 1 0\n0 0 0\n1 0 0\n0 1 0\n4 0 1 2\n");
         assert!(e.contains("declares 4 corners but lists 3"), "{e}");
+        let e = err("OFF\n3 1 0\n0 0 0\n1 0 0\n0 1 0\n18446744073709551615 0 1 2\n");
+        assert!(e.contains("line 6") && e.contains("lists 3"), "{e}");
         let e = err("OFF\n0 0 0\n");
         assert!(e.contains("non-empty"), "{e}");
         let e = err("");

@@ -174,7 +174,10 @@ fn parse_header(path: &Path, bytes: &[u8]) -> Result<Header> {
                     other => {
                         return Err(header_err(
                             path,
-                            format!("format `{other}`; expected ascii, binary_little_endian or binary_big_endian"),
+                            format!(
+                                "format `{other}`; expected {}",
+                                "ascii, binary_little_endian or binary_big_endian"
+                            ),
                         ))
                     }
                 });
@@ -344,7 +347,7 @@ fn check_header(path: &Path, h: &Header, body_len: usize) -> Result<(usize, usiz
         return Err(header_err(
             path,
             format!(
-                "the declared elements need at least {need} bytes of data but the file has {body_len} after the header"
+                "the elements need at least {need} data bytes; the file has {body_len} after the header"
             ),
         ));
     }
@@ -393,7 +396,7 @@ pub fn parse(path: &Path, bytes: &[u8]) -> Result<TriMesh> {
             return Err(Error::bad_file(
                 path,
                 format!("face {f}"),
-                format!("corner index {v} is out of range; expected an index below the vertex count {n}"),
+                format!("corner index {v} is out of range; expected below the vertex count {n}"),
             ));
         }
     }
@@ -411,11 +414,11 @@ struct Sink {
 
 impl Sink {
     /// Finish one face item: check and fan its polygon.
-    fn end_face(&mut self, path: &Path, element: &str) -> Result<()> {
+    fn end_face(&mut self, path: &Path, element: impl FnOnce() -> String) -> Result<()> {
         if self.polygon.len() < 3 {
             return Err(Error::bad_file(
                 path,
-                element,
+                element(),
                 format!("has {} corners; expected at least 3", self.polygon.len()),
             ));
         }
@@ -428,16 +431,17 @@ impl Sink {
 }
 
 /// A corner index value: a non-negative integer below `u32::MAX`.
-fn corner_index(path: &Path, element: &str, x: f64) -> Result<u32> {
-    if x >= 0.0 && x < u32::MAX as f64 && x.fract() == 0.0 {
-        Ok(x as u32)
-    } else {
-        Err(Error::bad_file(
-            path,
-            element,
-            format!("corner index {x} is not a vertex index; expected a non-negative integer"),
-        ))
-    }
+#[inline]
+fn corner_index(x: f64) -> Option<u32> {
+    (x >= 0.0 && x < u32::MAX as f64 && x.fract() == 0.0).then_some(x as u32)
+}
+
+fn bad_corner(path: &Path, element: &str, x: f64) -> Error {
+    Error::bad_file(
+        path,
+        element,
+        format!("corner index {x} is not a vertex index; expected a non-negative integer"),
+    )
 }
 
 fn read_ascii(path: &Path, h: &Header, body: &[u8], sink: &mut Sink) -> Result<()> {
@@ -487,7 +491,7 @@ fn read_ascii(path: &Path, h: &Header, body: &[u8], sink: &mut Sink) -> Result<(
                             return Err(Error::bad_file(
                                 path,
                                 element.as_str(),
-                                format!("vertex {i} has a non-finite coordinate {x}; expected finite millimetres"),
+                                format!("vertex {i} has a non-finite coordinate {x}; expected millimetres"),
                             ));
                         }
                         p[k] = x;
@@ -507,7 +511,9 @@ fn read_ascii(path: &Path, h: &Header, body: &[u8], sink: &mut Sink) -> Result<(
                         for _ in 0..c as u32 {
                             let x = next("a list item")?;
                             if role == Role::Corners {
-                                sink.polygon.push(corner_index(path, &element, x)?);
+                                let v =
+                                    corner_index(x).ok_or_else(|| bad_corner(path, &element, x))?;
+                                sink.polygon.push(v);
                             }
                         }
                     }
@@ -523,7 +529,7 @@ fn read_ascii(path: &Path, h: &Header, body: &[u8], sink: &mut Sink) -> Result<(
             if is_vertex {
                 sink.positions.push(p);
             } else if is_face {
-                sink.end_face(path, &element)?;
+                sink.end_face(path, || element.clone())?;
             }
         }
     }
@@ -587,6 +593,9 @@ fn read_binary(
         big_endian,
     };
     for e in &h.elements {
+        if e.properties.is_empty() {
+            continue; // items of no bytes: nothing to read, however many
+        }
         let is_vertex = e.name == "vertex";
         let is_face = e.name == "face";
         for i in 0..e.count {
@@ -630,7 +639,9 @@ fn read_binary(
                         if role == Role::Corners {
                             for _ in 0..c {
                                 let x = cur.read(item).ok_or_else(truncated)?;
-                                sink.polygon.push(corner_index(path, &element(), x)?);
+                                let v = corner_index(x)
+                                    .ok_or_else(|| bad_corner(path, &element(), x))?;
+                                sink.polygon.push(v);
                             }
                         } else {
                             cur.skip(c.saturating_mul(item.size()))
@@ -642,7 +653,7 @@ fn read_binary(
             if is_vertex {
                 sink.positions.push(p);
             } else if is_face {
-                sink.end_face(path, &element())?;
+                sink.end_face(path, element)?;
             }
         }
     }
@@ -887,6 +898,13 @@ mod tests {
         let e = err(b"ply\nformat ascii 1.0\nelement vertex 3\nproperty float x\nproperty float y\nproperty float z\n\
                       element face 1\nproperty list uchar int vertex_indices\nend_header\n0 0 0\n1 0 0 5\n0 1 0\n3 0 1 2\n");
         assert!(e.contains("line 11") && e.contains("more values"), "{e}");
+        // An element without properties is empty however large its count
+        // (no loop over its items), and the mesh after it still reads.
+        let mut b = b"ply\nformat binary_little_endian 1.0\nelement nothing 18446744073709551615\n"
+            .to_vec();
+        let body = to_bytes(&m, PlyEncoding::BinaryLittleEndian);
+        b.extend_from_slice(&body[b"ply\nformat binary_little_endian 1.0\n".len()..]);
+        assert_eq!(parse(p(), &b).unwrap(), m);
         // Header problems.
         let e = err(b"ply\nformat ascii 1.0\nelement vertex 0\nproperty float x\nproperty float y\nproperty float z\n\
                       element face 0\nproperty list uchar int vertex_indices\nend_header\n");

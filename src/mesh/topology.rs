@@ -31,8 +31,79 @@ pub struct EdgeTable {
 }
 
 impl EdgeTable {
-    /// Build the table by sorting the face sides (O(F log F)).
+    /// Build the table. The face sides are bucketed by their smaller vertex
+    /// (a counting sort, O(F + V)) and each small bucket is sorted by the
+    /// larger vertex, so the cost is near O(F) with no hashing; edges come
+    /// out sorted by `(a, b)` and the faces on each edge by `(face, slot)`.
     pub fn new(mesh: &TriMesh) -> Self {
+        let faces = &mesh.faces;
+        // Bucket count from the indices themselves, so that an unvalidated
+        // mesh cannot make this index out of bounds.
+        let n = faces
+            .iter()
+            .flat_map(|t| t.iter())
+            .max()
+            .map_or(0, |&m| m as usize + 1);
+        if faces.len() > (u32::MAX / 3) as usize {
+            return Self::new_by_sorting(mesh);
+        }
+        let mut start = vec![0u32; n + 1];
+        for t in faces {
+            for k in 0..3 {
+                let (a, b) = (t[k], t[(k + 1) % 3]);
+                if a != b {
+                    start[a.min(b) as usize + 1] += 1;
+                }
+            }
+        }
+        for v in 0..n {
+            start[v + 1] += start[v];
+        }
+        // Key: larger vertex in the high half, side id 3f + slot in the low.
+        let mut fill = start.clone();
+        let mut keys = vec![0u64; start[n] as usize];
+        for (f, t) in faces.iter().enumerate() {
+            for k in 0..3 {
+                let (a, b) = (t[k], t[(k + 1) % 3]);
+                if a != b {
+                    let slot = &mut fill[a.min(b) as usize];
+                    keys[*slot as usize] = ((a.max(b) as u64) << 32) | (3 * f + k) as u64;
+                    *slot += 1;
+                }
+            }
+        }
+        let mut edges = Vec::with_capacity(keys.len() / 2 + 1);
+        let mut offsets = Vec::with_capacity(keys.len() / 2 + 2);
+        let mut incidences = Vec::with_capacity(keys.len());
+        for a in 0..n {
+            let bucket = &mut keys[start[a] as usize..start[a + 1] as usize];
+            bucket.sort_unstable();
+            let mut last = u32::MAX;
+            for &key in bucket.iter() {
+                let b = (key >> 32) as u32;
+                if b != last {
+                    offsets.push(incidences.len() as u32);
+                    edges.push([a as u32, b]);
+                    last = b;
+                }
+                let side = key as u32;
+                incidences.push(Incidence {
+                    face: side / 3,
+                    slot: (side % 3) as u8,
+                });
+            }
+        }
+        offsets.push(incidences.len() as u32);
+        EdgeTable {
+            edges,
+            offsets,
+            incidences,
+        }
+    }
+
+    /// Same table by one global sort (for meshes with more than 2^32 / 3
+    /// faces, where side ids do not fit in 32 bits).
+    fn new_by_sorting(mesh: &TriMesh) -> Self {
         let mut sides: Vec<(u64, Incidence)> = Vec::with_capacity(mesh.faces.len() * 3);
         for (f, t) in mesh.faces.iter().enumerate() {
             for k in 0..3 {
@@ -144,14 +215,16 @@ pub fn face_components(mesh: &TriMesh) -> (Vec<u32>, usize) {
     }
     let roots: Vec<u32> = mesh.faces.iter().map(|t| uf.find(t[0])).collect();
     // Number the roots by first appearance, then order by size.
-    let mut id_of_root = std::collections::HashMap::new();
+    let mut id_of_root = vec![u32::MAX; mesh.n_vertices()];
     let mut counts: Vec<(usize, usize)> = Vec::new(); // (faces, first face)
     let mut first_ids = Vec::with_capacity(roots.len());
-    for (f, r) in roots.iter().enumerate() {
-        let id = *id_of_root.entry(*r).or_insert_with(|| {
+    for (f, &r) in roots.iter().enumerate() {
+        let slot = &mut id_of_root[r as usize];
+        if *slot == u32::MAX {
+            *slot = counts.len() as u32;
             counts.push((0, f));
-            counts.len() - 1
-        });
+        }
+        let id = *slot as usize;
         counts[id].0 += 1;
         first_ids.push(id);
     }
@@ -232,6 +305,21 @@ mod tests {
         // V - E + F = 2 - 2g - b (Massey 1991): sphere 2, torus 0.
         assert_eq!(euler(&icosphere(3, 1.0)), 2);
         assert_eq!(euler(&torus(3.0, 1.0, 24, 12)), 0);
+    }
+
+    #[test]
+    fn bucketed_edge_table_equals_the_sorted_one() {
+        let mut m = torus(3.0, 1.0, 9, 7);
+        m.faces.push([0, 0, 5]); // repeated index: no self-edge
+        m.faces.push([1, 0, 9]); // third face on an edge
+        m.faces.reverse();
+        let (a, b) = (EdgeTable::new(&m), EdgeTable::new_by_sorting(&m));
+        assert_eq!(a.edges, b.edges);
+        assert_eq!(a.offsets, b.offsets);
+        assert_eq!(a.incidences, b.incidences);
+        assert!(a.edges.windows(2).all(|w| w[0] < w[1]));
+        // Counts from Euler's formula (Massey 1991): torus chi = 0, so E = V + F.
+        assert_eq!(EdgeTable::new(&torus(3.0, 1.0, 9, 7)).len(), 63 + 126);
     }
 
     #[test]

@@ -79,7 +79,7 @@ def surface_image(rng, encoding, ordering="C"):
     xform = np.eye(4)
     xform[:3, :3] += rng.standard_normal((3, 3)) * 0.1
     xform[:3, 3] = rng.standard_normal(3) * 10
-    cs = GiftiCoordSystem(dataspace=1, xformspace=3, xform=xform)  # scanner -> Talairach
+    cs = GiftiCoordSystem(dataspace=1, xformspace=2, xform=xform)  # scanner -> aligned anatomy
     pts = GiftiDataArray(
         coords,
         intent="NIFTI_INTENT_POINTSET",
@@ -254,3 +254,38 @@ def test_bad_input_is_refused_with_the_file_named(binary, tmp_path):
     assert r.returncode == 1
     assert "bad.surf.gii" in r.stderr and "DataArray 0 (NIFTI_INTENT_POINTSET)" in r.stderr
     assert not (tmp_path / "o.gii").exists()
+
+
+ARTIFACTS = os.environ.get("HOROSPHERE_ARTIFACTS")
+
+
+@pytest.mark.skipif(not ARTIFACTS, reason="HOROSPHERE_ARTIFACTS not set (run `cargo test --test gifti` with it first)")
+def test_our_files_in_every_option_read_alike_in_nibabel():
+    """Files written by tests/gifti.rs (artifacts_for_reference_checks) in
+    each encoding, byte order and index order (including column-major ASCII,
+    one value per line) hold the same arrays for nibabel, and values whose
+    layout is known in advance sit where they should."""
+    folder = Path(ARTIFACTS) / "gifti"
+    files = sorted(folder.glob("rich_*.gii"))
+    assert len(files) == 12, files
+    ref = nib.load(folder / "rich_GZipBase64Binary_LittleEndian_RowMajorOrder.gii")
+    for f in files:
+        assert_same(ref, nib.load(f), f.name)
+    # Vertex 0 of the icosahedral sphere of radius 100 is (-1, t, 0) scaled
+    # to length 100, t the golden ratio (the generator's documented order).
+    t = (1 + 5**0.5) / 2
+    v0 = np.array([-1.0, t, 0.0]) / np.sqrt(1 + t * t) * 100
+    assert np.allclose(ref.darrays[0].data[0], v0, rtol=0, atol=1e-5)
+    assert ref.darrays[0].data.shape == (162, 3) and ref.darrays[1].data.shape == (320, 3)
+    # The 2 x 3 x 4 array holds 0.5 * (row-major flat index) - 3.
+    cube = ref.darrays[-1].data
+    assert cube.shape == (2, 3, 4)
+    assert cube[1, 2, 3] == 0.5 * 23 - 3 and cube[0, 1, 0] == 0.5 * 4 - 3
+    # The label table and the non-trivial transform.
+    assert [l.label for l in ref.labeltable.labels] == ["unassigned", "north & cap", "band"]
+    assert ref.labeltable.labels[1].rgba == (0.123456789012345, 0.5, 1.0, 1.0)
+    assert ref.labeltable.labels[2].rgba == (None, None, None, None)
+    cs = ref.darrays[0].coordsys
+    assert cs.dataspace == 1 and cs.xformspace == 2
+    assert cs.xform[1, 3] == 3.5 and cs.xform[2, 3] == 7.0e-3
+    assert ref.darrays[5].data.dtype.kind == "f" and ref.darrays[5].data.dtype.itemsize == 8

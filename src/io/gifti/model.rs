@@ -254,7 +254,7 @@ impl Data {
 /// after the transform, and the 4x4 matrix (row-major, `matrix[row][col]`).
 #[derive(Debug, Clone, PartialEq)]
 pub struct CoordTransform {
-    /// e.g. `NIFTI_XFORM_UNKNOWN`, `NIFTI_XFORM_SCANNER_ANAT`, `NIFTI_XFORM_TALAIRACH`.
+    /// e.g. `NIFTI_XFORM_UNKNOWN`, `NIFTI_XFORM_SCANNER_ANAT`, `NIFTI_XFORM_ALIGNED_ANAT`.
     pub data_space: String,
     /// The space after applying `matrix`.
     pub transformed_space: String,
@@ -339,9 +339,10 @@ impl DataArray {
         self.dims.first().copied().unwrap_or(0)
     }
 
-    /// Values per row (product of `dims[1..]`; 1 for a 1-D array).
+    /// Values per row (product of `dims[1..]`; 1 for a 1-D array;
+    /// `usize::MAX` if that product overflows, possible only when `dims[0] == 0`).
     pub fn cols(&self) -> usize {
-        self.dims.iter().skip(1).product()
+        element_count(self.dims.get(1..).unwrap_or(&[])).unwrap_or(usize::MAX)
     }
 
     /// True for a per-vertex column: `[n]` or `[n, 1]`.

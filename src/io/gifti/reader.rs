@@ -14,7 +14,10 @@
 //! expected. Follows "GIFTI Surface Data Format Version 1.0" (NIfTI Data
 //! Format Working Group, 2011); lenient where nibabel is (empty
 //! `ExternalFileOffset`, missing `Endian` taken as little-endian, label
-//! `Index` read as `Key`).
+//! `Index` read as `Key`, the `GIFTI_ENCODING_*` / `GIFTI_ENDIAN_*` spellings
+//! of older writers). ASCII data in a `ColumnMajorOrder` array is read as
+//! the standard says, values in the declared index order (nibabel 5 writes
+//! ASCII text row by row whatever its ordering option).
 
 use super::codec::{self, ByteOrder, IndexOrder};
 use super::model::{
@@ -165,7 +168,7 @@ impl<'a> Parser<'a, '_> {
 
     /// Accept `<!DOCTYPE GIFTI SYSTEM "...">` / `PUBLIC`; refuse any internal subset.
     fn check_doctype(&self, content: &str) -> Result<()> {
-        if content.contains("<!ENTITY") || content.contains("ENTITY") {
+        if content.contains("<!ENTITY") {
             return Err(self.bad(
                 "DOCTYPE",
                 "the document declares entities; refused (entities are never expanded). Expected at most the plain <!DOCTYPE GIFTI SYSTEM \"...gifti.dtd\"> line",

@@ -40,7 +40,7 @@ impl Encoding {
     }
 }
 
-/// Options of [`write`]: the default is GZipBase64Binary, little-endian, row-major.
+/// Options of [`write()`]: the default is GZipBase64Binary, little-endian, row-major.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
 pub struct WriteOptions {
     /// Encoding of every array's data.
@@ -145,7 +145,7 @@ fn validate(g: &Gifti) -> Result<()> {
     Ok(())
 }
 
-/// The bytes of the GIFTI file for `g` (what [`write`] writes).
+/// The bytes of the GIFTI file for `g` (what [`write()`] writes).
 pub fn to_bytes(g: &Gifti, opts: &WriteOptions) -> Result<Vec<u8>> {
     validate(g)?;
     let mut w: Vec<u8> = Vec::new();
