@@ -13,6 +13,7 @@
 use horosphere::map::{map_to_sphere, MapOptions};
 use horosphere::mesh::shapes::icosphere;
 use horosphere::mesh::TriMesh;
+use horosphere::synth::surface::{folded_surface, SurfaceParams};
 use std::f64::consts::PI;
 use std::time::Instant;
 
@@ -130,8 +131,24 @@ fn main() {
         .filter(|(name, _)| args.is_empty() || args.iter().any(|a| a == name))
         .collect();
     let mut results = Vec::new();
+    let synthetic = std::env::var("HOROSPHERE_BENCH_SURFACE").map(|v| v != "stand-in").unwrap_or(true);
     for (name, level) in sizes {
-        let mesh = folded_sphere(level, 0.25, 7);
+        let mesh = if synthetic {
+            // The synthetic cortex (crate::synth), same vertex count.
+            let params = SurfaceParams {
+                vertices: 10 * 4usize.pow(level) + 2,
+                ..SurfaceParams::default()
+            };
+            match folded_surface(&params, 7) {
+                Ok(s) => s.mesh,
+                Err(e) => {
+                    eprintln!("{name}: synthetic surface failed: {e}");
+                    std::process::exit(1);
+                }
+            }
+        } else {
+            folded_sphere(level, 0.25, 7)
+        };
         let t = Instant::now();
         let out = match map_to_sphere(&mesh, &MapOptions::default()) {
             Ok(out) => out,
