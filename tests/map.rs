@@ -11,7 +11,8 @@
 //!   Wu, "Convergence of discrete conformal geometry and computation of
 //!   uniformization maps", Asian J. Math. 23 (2019)).
 //! - `robust_*`: the robustness set of the issue.
-//! - `rejects_*`: bad input.
+//! - `synthetic_cortex_surfaces`: the synthetic hemispheres of crate::synth.
+//! - `rejects_*`, `command_line_*`: bad input and the command.
 //!
 //! Every output also passes `common_checks` (the tolerances of the issue).
 
@@ -1221,5 +1222,27 @@ fn smallest_closed_surfaces() {
         let r = run(&m);
         let (fit, _) = moebius_fit_residual(&r.points, &m.positions);
         assert!(fit < 1e-8, "{fit}");
+    }
+}
+
+#[test]
+fn synthetic_cortex_surfaces() {
+    // The synthetic hemispheres of crate::synth (folded, cortex-like, in mm):
+    // both hemispheres, two subjects; every output passes the checks and
+    // folds under 1% of the input faces (none at this resolution so far).
+    use horosphere::synth::surface::{folded_surface, Hemi, SurfaceParams};
+    for (seed, hemi) in [(1u64, Hemi::Left), (2, Hemi::Right)] {
+        let params = SurfaceParams {
+            vertices: 2562,
+            hemi,
+            ..SurfaceParams::default()
+        };
+        let s = folded_surface(&params, seed).unwrap();
+        let r = run(&s.mesh);
+        eprintln!(
+            "synthetic cortex seed {seed}: {} path, {} iterations, angle distortion p50/p95 {:.3}/{:.3}, inverted {}",
+            r.report.path, r.report.iterations, r.report.angle_distortion.p50, r.report.angle_distortion.p95, r.report.inverted_faces
+        );
+        assert!(r.report.inverted_faces < s.mesh.n_faces() / 100);
     }
 }
