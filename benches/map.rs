@@ -131,7 +131,9 @@ fn main() {
         .filter(|(name, _)| args.is_empty() || args.iter().any(|a| a == name))
         .collect();
     let mut results = Vec::new();
-    let synthetic = std::env::var("HOROSPHERE_BENCH_SURFACE").map(|v| v != "stand-in").unwrap_or(true);
+    let synthetic = std::env::var("HOROSPHERE_BENCH_SURFACE")
+        .map(|v| v != "stand-in")
+        .unwrap_or(true);
     for (name, level) in sizes {
         let mesh = if synthetic {
             // The synthetic cortex (crate::synth), same vertex count.

@@ -11,8 +11,8 @@ mod convert;
 mod demo;
 mod inspect;
 mod map;
-mod repair;
 mod matrix;
+mod repair;
 mod resample;
 mod sphere;
 

@@ -151,12 +151,11 @@ impl<T: Scalar> SparseSpd<T> {
         let t0 = std::time::Instant::now();
         if !same {
             let analyse = |ordering: SymmetricOrdering<'_, usize>| {
-                factorize_symbolic_cholesky(pattern, Side::Lower, ordering, Default::default()).map_err(|e| {
-                    Error::Algorithm {
+                factorize_symbolic_cholesky(pattern, Side::Lower, ordering, Default::default())
+                    .map_err(|e| Error::Algorithm {
                         stage: "map: sparse Cholesky (symbolic)",
                         message: format!("{e:?}"),
-                    }
-                })
+                    })
             };
             // Reuse the last fill-reducing ordering while the fill it gives
             // stays within 25% of what a fresh ordering gave (scaled by the
