@@ -312,7 +312,10 @@ pub fn layout_disk_harmonic(
     // weights), solve H delta = r, z += delta.
     let mut rx = vec![0.0; m];
     let mut ry = vec![0.0; m];
-    for _round in 0..4 {
+    let zmax = z
+        .iter()
+        .fold(0.0f64, |m, p| m.max(p[0].abs()).max(p[1].abs()));
+    for _round in 0..8 {
         rx.iter_mut().for_each(|x| *x = 0.0);
         ry.iter_mut().for_each(|x| *x = 0.0);
         for &h in &he.edge_half {
@@ -335,12 +338,17 @@ pub fn layout_disk_harmonic(
         }
         factor.solve(&mut rx)?;
         factor.solve(&mut ry)?;
+        let mut biggest: f64 = 0.0;
         for v in 0..n {
             if fvar[v] != FIXED {
                 let i = fvar[v] as usize;
                 z[v][0] += rx[i];
                 z[v][1] += ry[i];
+                biggest = biggest.max(rx[i].abs()).max(ry[i].abs());
             }
+        }
+        if biggest <= 1e-16 * zmax {
+            break;
         }
     }
     // Unit-scale residual of the triangle equations (as in [`layout_disk`]).

@@ -473,7 +473,14 @@ fn fast_path(
     // (disk angle below pi), checked by the verification's boundary test.
     let t = Instant::now();
     let mut sol = sol;
-    let (lay, points) = lay_out_fast(&mut sol, &d, pole).or_else(|_| lay_out(&sol, &d, pole))?;
+    let (lay, points) = match lay_out_fast(&mut sol, &d, pole) {
+        Ok(done) => done,
+        Err(e) => {
+            let (mut lay, points) = lay_out(&sol, &d, pole)?;
+            lay.method = format!("least-squares (harmonic layout not used: {e})");
+            (lay, points)
+        }
+    };
     times.layout = t.elapsed().as_secs_f64();
     let t = Instant::now();
     let ver = verify_solution(&sol, &d, pole, &lay, &points, opts).map_err(|e| {

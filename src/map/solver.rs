@@ -425,7 +425,21 @@ fn solve_general(
                     accepted = true;
                     break;
                 }
-                alpha *= 0.5;
+                // Backtrack to the minimiser of the quadratic through E(0),
+                // its slope and E(alpha), kept within [0.1, 0.5] alpha
+                // (Nocedal, Wright, "Numerical optimization", 2006, 3.5).
+                let slope = decrease / alpha;
+                let curv = ev_trial.energy - e0 - decrease;
+                let quad = if curv > 0.0 && slope < 0.0 {
+                    -slope * alpha * alpha / (2.0 * curv)
+                } else {
+                    f64::NAN
+                };
+                alpha = if quad.is_finite() {
+                    quad.clamp(0.1 * alpha, 0.5 * alpha)
+                } else {
+                    0.5 * alpha
+                };
             }
             flips += ls_flips;
             record.flips = ls_flips;
