@@ -9,6 +9,7 @@
 //! Delta-complex) and [`io`] (GIFTI, OBJ, PLY, OFF, tables). Research use
 //! only: not a medical device; results need a trained analyst's review.
 
+pub mod cohort;
 pub mod error;
 pub mod inspect;
 pub mod io;

@@ -8,6 +8,7 @@ use std::process::ExitCode;
 
 mod convert;
 mod inspect;
+mod run;
 
 /// Cortical surfaces of a cohort to one common sphere. Research use only:
 /// not a medical device; results need review by a trained analyst.
@@ -20,6 +21,8 @@ pub struct Cli {
 
 #[derive(Subcommand, Debug)]
 enum Command {
+    /// Run a cohort study: every subject and hemisphere through inspect, repair, map, align, resample; then matrices and a QC table.
+    Run(run::RunArgs),
     /// Report the topology and geometry of a surface mesh and whether it is ready to map.
     Inspect(inspect::InspectArgs),
     /// Re-encode a GIFTI file (encoding, byte order), keeping all its content.
@@ -30,6 +33,7 @@ enum Command {
 pub fn main() -> ExitCode {
     let cli = Cli::parse();
     let result: horosphere::Result<ExitCode> = match &cli.command {
+        Command::Run(args) => run::run(args),
         Command::Inspect(args) => inspect::run(args),
         Command::Convert(args) => convert::run(args),
     };
