@@ -1,5 +1,6 @@
 //! `horosphere run MANIFEST [--jobs N] [--only SUBJECT...] [--hemi H...]
-//! [--force] [--units-only | --cohort-only] [--output DIR] [--allow-failed]`:
+//! [--force] [--units-only | --cohort-only] [--output DIR] [--allow-failed]
+//! [--list] [--json]`:
 //! the cohort pipeline (library: [`horosphere::cohort`]). A progress bar
 //! (overall, with each unit's current stage) when stderr is a terminal;
 //! plain log lines otherwise. Exit status 1 when any unit failed, unless
@@ -46,6 +47,10 @@ pub struct RunArgs {
     /// Print the run summary as JSON on stdout.
     #[arg(long)]
     pub json: bool,
+    /// Print the units (subject, hemisphere, record file) and the output
+    /// root as JSON and stop; used by workflow engines to plan one job per unit.
+    #[arg(long)]
+    pub list: bool,
 }
 
 /// Run `horosphere run`.
@@ -56,6 +61,23 @@ pub fn run(args: &RunArgs) -> Result<ExitCode> {
     let mut manifest = Manifest::read(&args.manifest)?;
     if let Some(o) = &args.output {
         manifest.output = std::path::absolute(o).map_err(|e| Error::io(o, e))?;
+    }
+    if args.list {
+        let units = horosphere::cohort::discover::units(&manifest, &args.only, &args.hemi)?;
+        let v = serde_json::json!({
+            "output": manifest.output.to_string_lossy(),
+            "qc_table": "group/desc-cohort_qc.csv",
+            "units": units.iter().map(|u| serde_json::json!({
+                "subject": u.subject,
+                "hemi": u.hemi,
+                "record": horosphere::cohort::provenance::relative(
+                    &horosphere::cohort::unit::record_path(&manifest, u),
+                    &manifest.output,
+                ),
+            })).collect::<Vec<_>>(),
+        });
+        println!("{}", serde_json::to_string_pretty(&v).unwrap_or_default());
+        return Ok(ExitCode::SUCCESS);
     }
     let opts = RunOptions {
         jobs: args.jobs,
