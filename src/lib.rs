@@ -14,6 +14,7 @@ pub mod error;
 pub mod inspect;
 pub mod io;
 pub mod mesh;
+pub mod repair;
 
 pub use error::{Error, Result};
 pub use mesh::TriMesh;

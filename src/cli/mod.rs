@@ -9,6 +9,7 @@ use std::process::ExitCode;
 mod convert;
 mod inspect;
 mod run;
+mod repair;
 
 /// Cortical surfaces of a cohort to one common sphere. Research use only:
 /// not a medical device; results need review by a trained analyst.
@@ -27,6 +28,9 @@ enum Command {
     Inspect(inspect::InspectArgs),
     /// Re-encode a GIFTI file (encoding, byte order), keeping all its content.
     Convert(convert::ConvertArgs),
+    /// Repair a surface: merge duplicate vertices, drop degenerate faces and
+    /// stray pieces, orient it consistently and outward, fill its holes.
+    Repair(repair::RepairArgs),
 }
 
 /// Run the command line and return the exit status.
@@ -36,6 +40,7 @@ pub fn main() -> ExitCode {
         Command::Run(args) => run::run(args),
         Command::Inspect(args) => inspect::run(args),
         Command::Convert(args) => convert::run(args),
+        Command::Repair(args) => repair::run(args),
     };
     match result {
         Ok(code) => code,
