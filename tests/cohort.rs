@@ -30,10 +30,21 @@ fn study() -> &'static Path {
         let out = Command::new(BIN)
             .args(["demo", "--out"])
             .arg(&d)
-            .args(["--subjects", &SUBJECTS.to_string(), "--vertices", "2000", "--seed", "3"])
+            .args([
+                "--subjects",
+                &SUBJECTS.to_string(),
+                "--vertices",
+                "2000",
+                "--seed",
+                "3",
+            ])
             .output()
             .unwrap();
-        assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
         d
     })
 }
@@ -73,8 +84,8 @@ fn run(manifest: &Path, extra: &[&str]) -> (i32, serde_json::Value, String) {
         .output()
         .unwrap();
     let stderr = String::from_utf8_lossy(&out.stderr).into_owned();
-    let v: serde_json::Value = serde_json::from_slice(&out.stdout)
-        .unwrap_or_else(|e| panic!("{e}: {stderr}"));
+    let v: serde_json::Value =
+        serde_json::from_slice(&out.stdout).unwrap_or_else(|e| panic!("{e}: {stderr}"));
     (out.status.code().unwrap_or(-1), v, stderr)
 }
 
@@ -113,7 +124,10 @@ fn qc(output: &Path) -> Vec<BTreeMap<String, String>> {
     r.records()
         .map(|rec| {
             let rec = rec.unwrap();
-            h.iter().zip(rec.iter()).map(|(a, b)| (a.to_string(), b.to_string())).collect()
+            h.iter()
+                .zip(rec.iter())
+                .map(|(a, b)| (a.to_string(), b.to_string()))
+                .collect()
         })
         .collect()
 }
@@ -140,7 +154,10 @@ fn reference_run() -> &'static Path {
         let d = scratch("ref");
         let m = manifest(&d, study(), &d.join("out"));
         let (code, v, err) = run(&m, &["--jobs", "2"]);
-        assert_eq!(code, 1, "the handle subject fails, so the status is 1: {err}");
+        assert_eq!(
+            code, 1,
+            "the handle subject fails, so the status is 1: {err}"
+        );
         assert_eq!(v["computed"], 2 * SUBJECTS as u64, "{v}");
         d.join("out")
     })
@@ -198,31 +215,54 @@ fn demo_cohort_outcomes_follow_the_ground_truth() {
     }
     kinds.sort();
     kinds.dedup();
-    assert_eq!(kinds.len(), 5, "all four defects and clean units: {kinds:?}");
+    assert_eq!(
+        kinds.len(),
+        5,
+        "all four defects and clean units: {kinds:?}"
+    );
 
     // Cohort matrix: one column per finished unit on the level-3 sphere
     // (642 vertices), and linear resampling stays within the input range.
-    let ok: Vec<&BTreeMap<String, String>> = rows.iter().filter(|r| r["status"] != "failed").collect();
-    let g = horosphere::io::gifti::read(&out.join("group/space-icosphere3_desc-thickness_matrix.func.gii")).unwrap();
+    let ok: Vec<&BTreeMap<String, String>> =
+        rows.iter().filter(|r| r["status"] != "failed").collect();
+    let g = horosphere::io::gifti::read(
+        &out.join("group/space-icosphere3_desc-thickness_matrix.func.gii"),
+    )
+    .unwrap();
     assert_eq!(g.arrays.len(), ok.len());
     for (a, r) in g.arrays.iter().zip(&ok) {
         let unit = format!("{}_hemi-{}", r["subject"], r["hemi"]);
         assert_eq!(a.meta.get("Subject"), Some(unit.as_str()));
         let input = horosphere::io::gifti::read_shape(
-            &study().join(&r["subject"]).join(format!("{unit}_thickness.shape.gii")),
+            &study()
+                .join(&r["subject"])
+                .join(format!("{unit}_thickness.shape.gii")),
         )
         .unwrap();
         let lo = input.values.iter().copied().fold(f32::INFINITY, f32::min);
-        let hi = input.values.iter().copied().fold(f32::NEG_INFINITY, f32::max);
+        let hi = input
+            .values
+            .iter()
+            .copied()
+            .fold(f32::NEG_INFINITY, f32::max);
         let v = a.data.to_f64();
         assert_eq!(v.len(), 642);
         let finite: Vec<f64> = v.iter().copied().filter(|x| x.is_finite()).collect();
-        assert!(finite.len() >= 600, "{unit}: {} of 642 values", finite.len());
+        assert!(
+            finite.len() >= 600,
+            "{unit}: {} of 642 values",
+            finite.len()
+        );
         for x in finite {
-            assert!(x >= f64::from(lo) - 1e-4 && x <= f64::from(hi) + 1e-4, "{unit}: {x} outside [{lo}, {hi}]");
+            assert!(
+                x >= f64::from(lo) - 1e-4 && x <= f64::from(hi) + 1e-4,
+                "{unit}: {x} outside [{lo}, {hi}]"
+            );
         }
     }
-    let table = std::fs::read_to_string(out.join("group/space-icosphere3_desc-thickness_table.csv")).unwrap();
+    let table =
+        std::fs::read_to_string(out.join("group/space-icosphere3_desc-thickness_table.csv"))
+            .unwrap();
     assert_eq!(table.lines().count(), ok.len() + 1);
     assert_eq!(table.lines().next().unwrap().split(',').count(), 643);
 
@@ -232,8 +272,13 @@ fn demo_cohort_outcomes_follow_the_ground_truth() {
     for (name, bytes) in &files {
         if name.ends_with(".gii") || (name.ends_with(".csv")) {
             let stem = name.split('.').next().unwrap();
-            let side: serde_json::Value = serde_json::from_slice(&files[&format!("{stem}.json")]).unwrap();
-            assert_eq!(side["output"]["sha256"], horosphere::cohort::provenance::sha256_bytes(bytes), "{name}");
+            let side: serde_json::Value =
+                serde_json::from_slice(&files[&format!("{stem}.json")]).unwrap();
+            assert_eq!(
+                side["output"]["sha256"],
+                horosphere::cohort::provenance::sha256_bytes(bytes),
+                "{name}"
+            );
             assert_eq!(side["GeneratedBy"]["Name"], "horosphere");
             assert!(!side["inputs"].as_array().unwrap().is_empty());
             checked += 1;
@@ -255,12 +300,16 @@ fn one_thread_gives_the_bytes_of_two_and_a_rerun_recomputes_nothing() {
     assert_eq!(v["computed"], 2 * SUBJECTS as u64);
     assert_same_tree(reference, &out);
     let record = out.join("sub-kf01/sub-kf01_hemi-L_space-individual_desc-aligned_sphere.surf.gii");
-    let before = std::fs::metadata(&record).map(|m| m.modified().unwrap()).ok();
+    let before = std::fs::metadata(&record)
+        .map(|m| m.modified().unwrap())
+        .ok();
     let (_, v, _) = run(&m, &["--jobs", "2"]);
     // Only the failed unit is retried; every finished one is skipped.
     assert_eq!(v["skipped"], 2 * SUBJECTS as u64 - 1, "{v}");
     assert_eq!(v["computed"], 1, "{v}");
-    let after = std::fs::metadata(&record).map(|m| m.modified().unwrap()).ok();
+    let after = std::fs::metadata(&record)
+        .map(|m| m.modified().unwrap())
+        .ok();
     assert_eq!(before, after);
     assert_same_tree(reference, &out);
     // --force recomputes everything and gives the same bytes.
@@ -268,7 +317,8 @@ fn one_thread_gives_the_bytes_of_two_and_a_rerun_recomputes_nothing() {
     assert_eq!(v["computed"], 2 * SUBJECTS as u64);
     assert_same_tree(reference, &out);
     // A damaged output is noticed and its unit recomputed.
-    let victim = out.join("sub-kf02/sub-kf02_hemi-R_space-icosphere3_desc-aligned_thickness.shape.gii");
+    let victim =
+        out.join("sub-kf02/sub-kf02_hemi-R_space-icosphere3_desc-aligned_thickness.shape.gii");
     if victim.exists() {
         std::fs::write(&victim, b"damaged").unwrap();
         let (_, v, _) = run(&m, &["--jobs", "2"]);
@@ -297,7 +347,9 @@ fn a_corrupt_input_fails_its_unit_only_with_a_clear_message() {
         .find(|r| r["status"] == "ok")
         .map(|r| (r["subject"].clone(), r["hemi"].clone()))
         .unwrap();
-    let surf = root.join(&target.0).join(format!("{}_hemi-{}_white.surf.gii", target.0, target.1));
+    let surf = root
+        .join(&target.0)
+        .join(format!("{}_hemi-{}_white.surf.gii", target.0, target.1));
     let bytes = std::fs::read(&surf).unwrap();
     std::fs::write(&surf, &bytes[..bytes.len() / 2]).unwrap();
     let m = manifest(&d, &root, &d.join("out"));
@@ -308,7 +360,10 @@ fn a_corrupt_input_fails_its_unit_only_with_a_clear_message() {
         if (r["subject"].clone(), r["hemi"].clone()) == target {
             assert_eq!(r["status"], "failed");
             assert_eq!(r["failed_stage"], "read");
-            assert!(r["error"].contains(&format!("{}_hemi-{}_white.surf.gii", target.0, target.1)), "{r:?}");
+            assert!(
+                r["error"].contains(&format!("{}_hemi-{}_white.surf.gii", target.0, target.1)),
+                "{r:?}"
+            );
         } else {
             assert_eq!(r["status"], want["status"], "{r:?}");
         }
@@ -320,14 +375,22 @@ fn a_corrupt_input_fails_its_unit_only_with_a_clear_message() {
         .map(|r| (r["subject"].clone(), r["hemi"].clone()))
         .nth(1)
         .unwrap();
-    let map = root.join(&other.0).join(format!("{}_hemi-{}_thickness.shape.gii", other.0, other.1));
+    let map = root
+        .join(&other.0)
+        .join(format!("{}_hemi-{}_thickness.shape.gii", other.0, other.1));
     horosphere::io::gifti::write_shape(&map, &[1.0, 2.0, 3.0], &Default::default()).unwrap();
     let (code, _, _) = run(&m, &["--jobs", "2"]);
     assert_eq!(code, 1);
     let rows = qc(&d.join("out"));
-    let r = rows.iter().find(|r| (r["subject"].clone(), r["hemi"].clone()) == other).unwrap();
+    let r = rows
+        .iter()
+        .find(|r| (r["subject"].clone(), r["hemi"].clone()) == other)
+        .unwrap();
     assert_eq!(r["status"], "failed");
-    assert!(r["error"].contains("_thickness.shape.gii") && r["error"].contains("3 values"), "{r:?}");
+    assert!(
+        r["error"].contains("_thickness.shape.gii") && r["error"].contains("3 values"),
+        "{r:?}"
+    );
 }
 
 #[cfg(unix)]
@@ -354,7 +417,10 @@ fn a_killed_run_resumes_to_the_bytes_of_an_uninterrupted_one() {
     std::thread::sleep(std::time::Duration::from_millis(150));
     child.kill().unwrap(); // SIGKILL on Unix
     let status = child.wait().unwrap();
-    assert!(!status.success(), "the run should have been killed before it finished");
+    assert!(
+        !status.success(),
+        "the run should have been killed before it finished"
+    );
     assert!(!out.join("group/desc-cohort_qc.csv").exists());
     let (_, v, _) = run(&m, &["--jobs", "2"]);
     let skipped = v["skipped"].as_u64().unwrap();

@@ -8,8 +8,8 @@ use std::process::ExitCode;
 
 mod convert;
 mod inspect;
-mod run;
 mod repair;
+mod run;
 
 /// Cortical surfaces of a cohort to one common sphere. Research use only:
 /// not a medical device; results need review by a trained analyst.

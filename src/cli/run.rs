@@ -56,7 +56,10 @@ pub struct RunArgs {
 /// Run `horosphere run`.
 pub fn run(args: &RunArgs) -> Result<ExitCode> {
     if args.jobs == 0 || args.jobs > 1024 {
-        return Err(Error::Invalid(format!("--jobs {}: expected 1 to 1024", args.jobs)));
+        return Err(Error::Invalid(format!(
+            "--jobs {}: expected 1 to 1024",
+            args.jobs
+        )));
     }
     let mut manifest = Manifest::read(&args.manifest)?;
     if let Some(o) = &args.output {
@@ -98,8 +101,10 @@ pub fn run(args: &RunArgs) -> Result<ExitCode> {
             if terminal {
                 let b = indicatif::ProgressBar::new(total as u64);
                 b.set_style(
-                    indicatif::ProgressStyle::with_template("{prefix} {bar:30} {pos}/{len} units  {msg}")
-                        .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
+                    indicatif::ProgressStyle::with_template(
+                        "{prefix} {bar:30} {pos}/{len} units  {msg}",
+                    )
+                    .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
                 );
                 b.set_prefix("run");
                 if let Ok(mut g) = bar.lock() {
@@ -180,7 +185,11 @@ pub fn run(args: &RunArgs) -> Result<ExitCode> {
             summary
                 .group
                 .as_ref()
-                .map(|g| format!("; cohort QC table: {} failed of {}", g.failed, manifest.output.join("group/desc-cohort_qc.csv").display()))
+                .map(|g| format!(
+                    "; cohort QC table: {} failed of {}",
+                    g.failed,
+                    manifest.output.join("group/desc-cohort_qc.csv").display()
+                ))
                 .unwrap_or_default()
         );
     }

@@ -136,7 +136,9 @@ pub fn units(m: &Manifest, only: &[String], hemi: &[String]) -> Result<Vec<Unit>
                         .iter()
                         .map(|ext| dir.join(format!("{stem}_{suffix}.{ext}")))
                         .find(|p| p.is_file())
-                        .unwrap_or_else(|| dir.join(format!("{stem}_{suffix}.{}", MAP_EXTENSIONS[0])));
+                        .unwrap_or_else(|| {
+                            dir.join(format!("{stem}_{suffix}.{}", MAP_EXTENSIONS[0]))
+                        });
                     (suffix.clone(), found)
                 })
                 .collect();

@@ -15,7 +15,9 @@
 
 use super::discover::Unit;
 use super::manifest::Manifest;
-use super::provenance::{json_bytes, relative, sha256_bytes, write_sidecar, FileHash, GeneratedBy, Sidecar};
+use super::provenance::{
+    json_bytes, relative, sha256_bytes, write_sidecar, FileHash, GeneratedBy, Sidecar,
+};
 use super::unit::{read_record, record_path, UnitRecord};
 use crate::error::{Error, Result};
 use crate::io::atomic::write_bytes;
@@ -94,7 +96,8 @@ fn qc_row(u: &Unit, r: Option<&UnitRecord>) -> Vec<String> {
     let p = r.repair.as_ref();
     let m = r.map.as_ref();
     let a = r.align.as_ref();
-    let vertices_mapped = m.map(|_| p.map_or_else(|| i.map_or(0, |i| i.vertices), |p| p.vertices_out));
+    let vertices_mapped =
+        m.map(|_| p.map_or_else(|| i.map_or(0, |i| i.vertices), |p| p.vertices_out));
     vec![
         format!("sub-{}", r.subject),
         r.hemi.clone(),
@@ -189,7 +192,8 @@ pub fn write_group(m: &Manifest, units: &[Unit], space: &str) -> Result<GroupSum
         })
         .collect();
     let mut files = Vec::new();
-    let options = serde_json::json!({ "space": space, "maps": m.maps, "hemispheres": m.hemispheres });
+    let options =
+        serde_json::json!({ "space": space, "maps": m.maps, "hemispheres": m.hemispheres });
     // QC table.
     let mut rows = vec![QC_COLUMNS.iter().map(|s| s.to_string()).collect::<Vec<_>>()];
     let mut failed = 0;
@@ -219,13 +223,21 @@ pub fn write_group(m: &Manifest, units: &[Unit], space: &str) -> Result<GroupSum
             if r.status == "failed" {
                 continue;
             }
-            let Some(o) = r.outputs.iter().find(|o| o.map.as_deref() == Some(suffix.as_str())) else {
+            let Some(o) = r
+                .outputs
+                .iter()
+                .find(|o| o.map.as_deref() == Some(suffix.as_str()))
+            else {
                 continue;
             };
             let path = m.output.join(&o.path);
             let g = gifti::read(&path)?;
             let a = g.arrays.first().ok_or_else(|| {
-                Error::bad_file(&path, "DataArray 0", "missing; expected the resampled values")
+                Error::bad_file(
+                    &path,
+                    "DataArray 0",
+                    "missing; expected the resampled values",
+                )
             })?;
             cols.push(CohortColumn {
                 subject: u.stem(),
@@ -254,7 +266,13 @@ pub fn write_group(m: &Manifest, units: &[Unit], space: &str) -> Result<GroupSum
         for c in &cols {
             let mut row = Vec::with_capacity(n + 1);
             row.push(c.subject.clone());
-            row.extend(c.values.iter().map(|x| if x.is_finite() { x.to_string() } else { String::new() }));
+            row.extend(c.values.iter().map(|x| {
+                if x.is_finite() {
+                    x.to_string()
+                } else {
+                    String::new()
+                }
+            }));
             rows.push(row);
         }
         put(m, &tname, &csv_bytes(&rows)?, inputs, options.clone())?;
@@ -263,7 +281,13 @@ pub fn write_group(m: &Manifest, units: &[Unit], space: &str) -> Result<GroupSum
     Ok(GroupSummary { files, failed })
 }
 
-fn put(m: &Manifest, name: &str, bytes: &[u8], inputs: Vec<FileHash>, options: serde_json::Value) -> Result<()> {
+fn put(
+    m: &Manifest,
+    name: &str,
+    bytes: &[u8],
+    inputs: Vec<FileHash>,
+    options: serde_json::Value,
+) -> Result<()> {
     let path = m.output.join(name);
     write_bytes(&path, bytes)?;
     write_sidecar(

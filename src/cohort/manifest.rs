@@ -237,12 +237,19 @@ impl Manifest {
             bad(
                 path,
                 "TOML",
-                format!("{}; expected a manifest as described in docs/manifest.md", e.message()),
+                format!(
+                    "{}; expected a manifest as described in docs/manifest.md",
+                    e.message()
+                ),
             )
         })?;
         if let Some(f) = &raw.format {
             if f != MANIFEST_FORMAT {
-                return Err(bad(path, "format", format!("`{f}`; expected `{MANIFEST_FORMAT}`")));
+                return Err(bad(
+                    path,
+                    "format",
+                    format!("`{f}`; expected `{MANIFEST_FORMAT}`"),
+                ));
             }
         }
         if let Some(v) = raw.version {
@@ -267,7 +274,11 @@ impl Manifest {
             return Err(bad(path, "study.root", "empty; expected the study folder"));
         }
         if raw.study.output.trim().is_empty() {
-            return Err(bad(path, "study.output", "empty; expected the output folder"));
+            return Err(bad(
+                path,
+                "study.output",
+                "empty; expected the output folder",
+            ));
         }
         let subjects = match raw.study.subjects {
             None => None,
@@ -283,30 +294,53 @@ impl Manifest {
                         ));
                     }
                     if out.contains(&label) {
-                        return Err(bad(path, "study.subjects", format!("`{s}` is listed twice")));
+                        return Err(bad(
+                            path,
+                            "study.subjects",
+                            format!("`{s}` is listed twice"),
+                        ));
                     }
                     out.push(label);
                 }
                 Some(out)
             }
         };
-        let hemispheres = raw.study.hemispheres.unwrap_or_else(|| vec!["L".into(), "R".into()]);
+        let hemispheres = raw
+            .study
+            .hemispheres
+            .unwrap_or_else(|| vec!["L".into(), "R".into()]);
         if hemispheres.is_empty() {
-            return Err(bad(path, "study.hemispheres", "empty; expected [\"L\"], [\"R\"] or [\"L\", \"R\"]"));
+            return Err(bad(
+                path,
+                "study.hemispheres",
+                "empty; expected [\"L\"], [\"R\"] or [\"L\", \"R\"]",
+            ));
         }
         for (i, h) in hemispheres.iter().enumerate() {
             if h != "L" && h != "R" {
-                return Err(bad(path, "study.hemispheres", format!("`{h}`: expected L or R")));
+                return Err(bad(
+                    path,
+                    "study.hemispheres",
+                    format!("`{h}`: expected L or R"),
+                ));
             }
             if hemispheres[..i].contains(h) {
-                return Err(bad(path, "study.hemispheres", format!("`{h}` is listed twice")));
+                return Err(bad(
+                    path,
+                    "study.hemispheres",
+                    format!("`{h}` is listed twice"),
+                ));
             }
         }
         check_suffix(path, "inputs.surface", &raw.inputs.surface)?;
         for (i, m) in raw.inputs.maps.iter().enumerate() {
             check_suffix(path, "inputs.maps", m)?;
             if raw.inputs.maps[..i].contains(m) || *m == raw.inputs.surface {
-                return Err(bad(path, "inputs.maps", format!("`{m}` is listed twice or is the surface suffix")));
+                return Err(bad(
+                    path,
+                    "inputs.maps",
+                    format!("`{m}` is listed twice or is the surface suffix"),
+                ));
             }
         }
         if let Some(l) = &raw.inputs.landmarks {
@@ -322,10 +356,18 @@ impl Manifest {
         let template = raw.inputs.template.as_deref().map(resolve);
         let r = &raw.repair;
         if !(r.merge_tolerance_mm.is_finite() && r.merge_tolerance_mm >= 0.0) {
-            return Err(bad(path, "repair.merge_tolerance_mm", format!("{}; expected a number >= 0", r.merge_tolerance_mm)));
+            return Err(bad(
+                path,
+                "repair.merge_tolerance_mm",
+                format!("{}; expected a number >= 0", r.merge_tolerance_mm),
+            ));
         }
         if r.max_hole_edges < 3 || r.max_hole_edges > 2000 {
-            return Err(bad(path, "repair.max_hole_edges", format!("{}; expected 3 to 2000", r.max_hole_edges)));
+            return Err(bad(
+                path,
+                "repair.max_hole_edges",
+                format!("{}; expected 3 to 2000", r.max_hole_edges),
+            ));
         }
         let pole = match &raw.map.pole {
             None => PoleSetting::Auto,
@@ -344,10 +386,18 @@ impl Manifest {
         };
         let radius_mm = raw.map.radius_mm.unwrap_or(100.0);
         if !(radius_mm.is_finite() && radius_mm > 0.0) {
-            return Err(bad(path, "map.radius_mm", format!("{radius_mm}; expected a positive number of millimetres")));
+            return Err(bad(
+                path,
+                "map.radius_mm",
+                format!("{radius_mm}; expected a positive number of millimetres"),
+            ));
         }
         if raw.align.fit != "mobius" && raw.align.fit != "rotation" {
-            return Err(bad(path, "align.fit", format!("`{}`; expected mobius or rotation", raw.align.fit)));
+            return Err(bad(
+                path,
+                "align.fit",
+                format!("`{}`; expected mobius or rotation", raw.align.fit),
+            ));
         }
         let target_text = raw.resample.target.unwrap_or_else(|| "icosphere:5".into());
         let target = if target_text.starts_with("icosphere:") {
@@ -357,14 +407,26 @@ impl Manifest {
         };
         let fwhm_mm = raw.resample.fwhm_mm.unwrap_or(0.0);
         if !(fwhm_mm.is_finite() && fwhm_mm >= 0.0) {
-            return Err(bad(path, "resample.fwhm_mm", format!("{fwhm_mm}; expected a number of millimetres >= 0")));
+            return Err(bad(
+                path,
+                "resample.fwhm_mm",
+                format!("{fwhm_mm}; expected a number of millimetres >= 0"),
+            ));
         }
         for (k, v) in &raw.resample.method {
             if !raw.inputs.maps.contains(k) {
-                return Err(bad(path, "resample.method", format!("`{k}` is not one of inputs.maps")));
+                return Err(bad(
+                    path,
+                    "resample.method",
+                    format!("`{k}` is not one of inputs.maps"),
+                ));
             }
             if !["linear", "nearest", "majority"].contains(&v.as_str()) {
-                return Err(bad(path, "resample.method", format!("{k} = `{v}`; expected linear, nearest or majority")));
+                return Err(bad(
+                    path,
+                    "resample.method",
+                    format!("{k} = `{v}`; expected linear, nearest or majority"),
+                ));
             }
         }
         Ok(Manifest {
@@ -441,10 +503,14 @@ method = { regions = "majority" }
         assert!(e.to_string().contains("map.pole"), "{e}");
         let e = Manifest::parse(&GOOD.replace("[\"L\"]", "[\"X\"]"), p).unwrap_err();
         assert!(e.to_string().contains("study.hemispheres"), "{e}");
-        let e = Manifest::parse(&GOOD.replace("regions = \"majority\"", "regions = \"mode\""), p)
-            .unwrap_err();
+        let e = Manifest::parse(
+            &GOOD.replace("regions = \"majority\"", "regions = \"mode\""),
+            p,
+        )
+        .unwrap_err();
         assert!(e.to_string().contains("resample.method"), "{e}");
-        let e = Manifest::parse(&GOOD.replace("template = \"tpl-{hemi}.toml\"", ""), p).unwrap_err();
+        let e =
+            Manifest::parse(&GOOD.replace("template = \"tpl-{hemi}.toml\"", ""), p).unwrap_err();
         assert!(e.to_string().contains("inputs.landmarks"), "{e}");
     }
 }

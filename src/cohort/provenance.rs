@@ -156,7 +156,10 @@ mod tests {
             sidecar_path(Path::new("/o/sub-a/sub-a_hemi-L_sphere.surf.gii")),
             Path::new("/o/sub-a/sub-a_hemi-L_sphere.json")
         );
-        assert_eq!(relative(Path::new("/r/sub-a/x.gii"), Path::new("/r")), "sub-a/x.gii");
+        assert_eq!(
+            relative(Path::new("/r/sub-a/x.gii"), Path::new("/r")),
+            "sub-a/x.gii"
+        );
         assert_eq!(hex(&[0, 15, 255]), "000fff");
     }
 }

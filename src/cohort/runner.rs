@@ -69,8 +69,8 @@ pub struct RunSummary {
 
 /// The target sphere and its label.
 pub fn shared_data(m: &Manifest) -> Result<Shared> {
-    let target = Target::parse(&m.resample.target)
-        .map_err(|e| e.in_file(&m.path, "resample.target"))?;
+    let target =
+        Target::parse(&m.resample.target).map_err(|e| e.in_file(&m.path, "resample.target"))?;
     let mesh = target.mesh(DEFAULT_SPHERE_TOLERANCE)?;
     let target_file = match &target {
         Target::File(p) => Some((p.clone(), sha256_file(p)?)),
@@ -84,7 +84,11 @@ pub fn shared_data(m: &Manifest) -> Result<Shared> {
 }
 
 /// Run the cohort of `m`.
-pub fn run(m: &Manifest, opts: &RunOptions, progress: &(dyn Fn(Event) + Sync)) -> Result<RunSummary> {
+pub fn run(
+    m: &Manifest,
+    opts: &RunOptions,
+    progress: &(dyn Fn(Event) + Sync),
+) -> Result<RunSummary> {
     let all_units = units(m, &[], &[])?;
     let selected: Vec<Unit> = units(m, &opts.only, &opts.hemi)?;
     let shared = shared_data(m)?;
@@ -104,7 +108,9 @@ pub fn run(m: &Manifest, opts: &RunOptions, progress: &(dyn Fn(Event) + Sync)) -
         let pool = rayon::ThreadPoolBuilder::new()
             .num_threads(opts.jobs.max(1))
             .build()
-            .map_err(|e| Error::Invalid(format!("cannot start {} worker threads: {e}", opts.jobs)))?;
+            .map_err(|e| {
+                Error::Invalid(format!("cannot start {} worker threads: {e}", opts.jobs))
+            })?;
         let results: Vec<(String, Result<(UnitRecord, bool)>)> = pool.install(|| {
             selected
                 .par_iter()

@@ -194,14 +194,22 @@ pub fn record_path(m: &Manifest, u: &Unit) -> PathBuf {
 }
 
 /// The names of every file a unit may write (relative to the output root).
-fn output_names(m: &Manifest, u: &Unit, space: &str, label_maps: &[String]) -> Vec<(String, Option<String>, String)> {
+fn output_names(
+    m: &Manifest,
+    u: &Unit,
+    space: &str,
+    label_maps: &[String],
+) -> Vec<(String, Option<String>, String)> {
     let dir = u.sub();
     let stem = u.stem();
     let mut out = vec![
         (
             "repaired-surface".to_string(),
             None,
-            format!("{dir}/{stem}_space-native_desc-repaired_{}.surf.gii", m.surface),
+            format!(
+                "{dir}/{stem}_space-native_desc-repaired_{}.surf.gii",
+                m.surface
+            ),
         ),
         (
             "sphere".to_string(),
@@ -215,7 +223,11 @@ fn output_names(m: &Manifest, u: &Unit, space: &str, label_maps: &[String]) -> V
         ),
     ];
     for suffix in &m.maps {
-        let ext = if label_maps.contains(suffix) { "label.gii" } else { "shape.gii" };
+        let ext = if label_maps.contains(suffix) {
+            "label.gii"
+        } else {
+            "shape.gii"
+        };
         out.push((
             "resampled-map".to_string(),
             Some(suffix.clone()),
@@ -296,9 +308,10 @@ pub fn read_record(path: &Path) -> Option<UnitRecord> {
 pub fn is_current(m: &Manifest, record: &UnitRecord, key: &str) -> bool {
     record.key == key
         && record.status != "failed"
-        && record.outputs.iter().all(|o| {
-            sha256_file(&m.output.join(&o.path)).is_ok_and(|h| h == o.sha256)
-        })
+        && record
+            .outputs
+            .iter()
+            .all(|o| sha256_file(&m.output.join(&o.path)).is_ok_and(|h| h == o.sha256))
 }
 
 /// Remove leftover temporary files of this unit (from a killed run).
@@ -429,7 +442,10 @@ fn carry(values: &MapValues, origin: &[Option<u32>]) -> MapValues {
         MapValues::Continuous(v) => MapValues::Continuous(
             origin
                 .iter()
-                .map(|o| o.and_then(|i| v.get(i as usize).copied()).unwrap_or(f64::NAN))
+                .map(|o| {
+                    o.and_then(|i| v.get(i as usize).copied())
+                        .unwrap_or(f64::NAN)
+                })
                 .collect(),
         ),
         MapValues::Labels { keys, table } => {
@@ -437,7 +453,10 @@ fn carry(values: &MapValues, origin: &[Option<u32>]) -> MapValues {
             MapValues::Labels {
                 keys: origin
                     .iter()
-                    .map(|o| o.and_then(|i| keys.get(i as usize).copied()).unwrap_or(missing))
+                    .map(|o| {
+                        o.and_then(|i| keys.get(i as usize).copied())
+                            .unwrap_or(missing)
+                    })
                     .collect(),
                 table: table.clone(),
             }
@@ -533,7 +552,11 @@ fn compute(
         let origin: Vec<Option<u32>> = (0..n_in as u32).map(Some).collect();
         (input, origin, vec![false; n_in], false)
     } else if !m.repair.enabled {
-        let reasons: Vec<String> = inspection.reasons.iter().map(|r| r.message.clone()).collect();
+        let reasons: Vec<String> = inspection
+            .reasons
+            .iter()
+            .map(|r| r.message.clone())
+            .collect();
         return Err(StageError {
             stage: "repair",
             error: Error::NotReady(format!(
@@ -584,7 +607,17 @@ fn compute(
         );
         let bytes = gifti_bytes(&Gifti::from_mesh(&mesh)).map_err(at("repair"))?;
         let opts = options_upto(&record.options, "repair");
-        put(m, record, "repaired-surface", None, &name, &bytes, "repair", opts).map_err(at("repair"))?;
+        put(
+            m,
+            record,
+            "repaired-surface",
+            None,
+            &name,
+            &bytes,
+            "repair",
+            opts,
+        )
+        .map_err(at("repair"))?;
     }
     // Landmarks on the repaired surface.
     let landmarks: Option<Vec<Landmark>> = match (&raw_landmarks, &u.landmarks) {
@@ -629,7 +662,9 @@ fn compute(
         PoleSetting::Auto => PoleChoice::Auto,
         PoleSetting::Vertex(v) => PoleChoice::Vertex(v),
         PoleSetting::RepairAdded => {
-            let list: Vec<u32> = (0..n as u32).filter(|&v| added.get(v as usize).copied().unwrap_or(false)).collect();
+            let list: Vec<u32> = (0..n as u32)
+                .filter(|&v| added.get(v as usize).copied().unwrap_or(false))
+                .collect();
             if list.is_empty() {
                 PoleChoice::Auto
             } else {
@@ -659,8 +694,16 @@ fn compute(
     };
     record.map = Some(map_figures(&sphere.report));
     let radius = m.map.radius_mm;
-    let scaled: Vec<Vec3> = sphere.points.iter().map(|p| [p[0] * radius, p[1] * radius, p[2] * radius]).collect();
-    let name = format!("{}/{}_space-individual_desc-conformal_sphere.surf.gii", u.sub(), u.stem());
+    let scaled: Vec<Vec3> = sphere
+        .points
+        .iter()
+        .map(|p| [p[0] * radius, p[1] * radius, p[2] * radius])
+        .collect();
+    let name = format!(
+        "{}/{}_space-individual_desc-conformal_sphere.surf.gii",
+        u.sub(),
+        u.stem()
+    );
     let bytes = gifti_bytes(&Gifti::from_mesh(&TriMesh {
         positions: scaled,
         faces: mesh.faces.clone(),
@@ -675,7 +718,11 @@ fn compute(
     let centring = m.align.center.then(CentringOptions::default);
     let transform = match (&landmarks, &template) {
         (Some(l), Some(t)) => {
-            let fit = if m.align.fit == "rotation" { FitKind::Rotation } else { FitKind::Mobius };
+            let fit = if m.align.fit == "rotation" {
+                FitKind::Rotation
+            } else {
+                FitKind::Mobius
+            };
             let a = align::align(
                 &sphere.points,
                 Some(&weights),
@@ -692,7 +739,10 @@ fn compute(
                 error: match e {
                     Error::Invalid(msg) => Error::Invalid(format!(
                         "{}: {msg}",
-                        u.landmarks.as_deref().map(|p| relative(p, &m.root)).unwrap_or_default()
+                        u.landmarks
+                            .as_deref()
+                            .map(|p| relative(p, &m.root))
+                            .unwrap_or_default()
                     )),
                     other => other,
                 },
@@ -734,14 +784,28 @@ fn compute(
         }
     };
     let aligned = align::aligned_positions(&transform, &sphere.points, radius);
-    let name = format!("{}/{}_space-individual_desc-aligned_sphere.surf.gii", u.sub(), u.stem());
+    let name = format!(
+        "{}/{}_space-individual_desc-aligned_sphere.surf.gii",
+        u.sub(),
+        u.stem()
+    );
     let bytes = gifti_bytes(&Gifti::from_mesh(&TriMesh {
         positions: aligned.clone(),
         faces: mesh.faces.clone(),
     }))
     .map_err(at("align"))?;
     let opts = options_upto(&record.options, "align");
-    put(m, record, "aligned-sphere", None, &name, &bytes, "align", opts).map_err(at("align"))?;
+    put(
+        m,
+        record,
+        "aligned-sphere",
+        None,
+        &name,
+        &bytes,
+        "align",
+        opts,
+    )
+    .map_err(at("align"))?;
 
     // Resample.
     progress("resample");
@@ -759,7 +823,12 @@ fn compute(
         .collect();
     if m.resample.fwhm_mm > 0.0 {
         let idx: Vec<usize> = (0..carried.len())
-            .filter(|&i| matches!(carried.get(i).map(|c| &c.values), Some(MapValues::Continuous(_))))
+            .filter(|&i| {
+                matches!(
+                    carried.get(i).map(|c| &c.values),
+                    Some(MapValues::Continuous(_))
+                )
+            })
             .collect();
         let values: Vec<Vec<f64>> = idx
             .iter()
@@ -794,14 +863,22 @@ fn compute(
             Some(s) => Method::parse(s).map_err(at("resample"))?,
             None => map.values.default_method(),
         };
-        let (out, _) = resample::resample_located(&locator, &location, std::slice::from_ref(map), mask, Some(method))
-            .map_err(|e| StageError {
-                stage: "resample",
-                error: match e {
-                    Error::Invalid(msg) => Error::Invalid(format!("{}: {msg}", relative(path, &m.root))),
-                    other => other,
-                },
-            })?;
+        let (out, _) = resample::resample_located(
+            &locator,
+            &location,
+            std::slice::from_ref(map),
+            mask,
+            Some(method),
+        )
+        .map_err(|e| StageError {
+            stage: "resample",
+            error: match e {
+                Error::Invalid(msg) => {
+                    Error::Invalid(format!("{}: {msg}", relative(path, &m.root)))
+                }
+                other => other,
+            },
+        })?;
         let Some(r) = out.into_iter().next() else {
             continue;
         };
@@ -826,8 +903,17 @@ fn compute(
         let g = files::resampled_gifti(&r, method, &shared.space, &source);
         let bytes = gifti_bytes(&g).map_err(at("resample"))?;
         let opts = options_upto(&record.options, "resample");
-        put(m, record, "resampled-map", Some(suffix.clone()), &name, &bytes, "resample", opts)
-            .map_err(at("resample"))?;
+        put(
+            m,
+            record,
+            "resampled-map",
+            Some(suffix.clone()),
+            &name,
+            &bytes,
+            "resample",
+            opts,
+        )
+        .map_err(at("resample"))?;
     }
     finish(record, repaired)
 }
