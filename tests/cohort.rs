@@ -438,3 +438,42 @@ fn the_demo_manifest_is_valid() {
         assert_eq!(t.landmarks.len(), 7);
     }
 }
+
+/// The per-unit mode the Snakemake workflow uses (one process per unit,
+/// then the cohort step) gives the bytes of the whole-cohort run.
+#[test]
+fn one_process_per_unit_gives_the_bytes_of_one_run() {
+    let reference = reference_run();
+    let d = scratch("perunit");
+    let out = d.join("out");
+    let m = manifest(&d, study(), &out);
+    let list = Command::new(BIN)
+        .arg("run")
+        .arg(&m)
+        .arg("--list")
+        .output()
+        .unwrap();
+    assert!(list.status.success());
+    let plan: serde_json::Value = serde_json::from_slice(&list.stdout).unwrap();
+    let units = plan["units"].as_array().unwrap();
+    assert_eq!(units.len(), 2 * SUBJECTS);
+    for u in units {
+        let (code, v, err) = run(
+            &m,
+            &[
+                "--only",
+                u["subject"].as_str().unwrap(),
+                "--hemi",
+                u["hemi"].as_str().unwrap(),
+                "--units-only",
+                "--allow-failed",
+            ],
+        );
+        assert_eq!(code, 0, "{err}");
+        assert_eq!(v["units"], 1);
+        assert!(out.join(u["record"].as_str().unwrap()).is_file());
+    }
+    let (code, _, _) = run(&m, &["--cohort-only"]);
+    assert_eq!(code, 1, "the cohort step reports the failed unit");
+    assert_same_tree(reference, &out);
+}

@@ -308,10 +308,11 @@ pub fn read_record(path: &Path) -> Option<UnitRecord> {
 pub fn is_current(m: &Manifest, record: &UnitRecord, key: &str) -> bool {
     record.key == key
         && record.status != "failed"
-        && record
-            .outputs
-            .iter()
-            .all(|o| sha256_file(&m.output.join(&o.path)).is_ok_and(|h| h == o.sha256))
+        && record.outputs.iter().all(|o| {
+            let p = m.output.join(&o.path);
+            super::provenance::sidecar_path(&p).is_file()
+                && sha256_file(&p).is_ok_and(|h| h == o.sha256)
+        })
 }
 
 /// Remove leftover temporary files of this unit (from a killed run).
