@@ -51,6 +51,13 @@ impl Unit {
 
 /// Subject labels of the study root: folders `sub-<label>` (sorted).
 pub fn discover_subjects(m: &Manifest) -> Result<Vec<String>> {
+    if !m.root.is_dir() {
+        return Err(Error::Invalid(format!(
+            "{}: study.root {} is not a folder; expected the study folder (for the bundled demo: `horosphere demo --out demo-subjects`)",
+            m.path.display(),
+            m.root.display()
+        )));
+    }
     let entries = std::fs::read_dir(&m.root).map_err(|e| Error::io(&m.root, e))?;
     let mut out = Vec::new();
     for entry in entries {
