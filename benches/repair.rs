@@ -16,7 +16,10 @@ use horosphere::repair::{repair, FillMethod, RepairOptions};
 use std::time::Instant;
 
 fn main() {
-    let full = icosphere(7, 100.0);
+    // `cargo bench` passes `--bench`; `cargo test --all-targets` does not, and
+    // then a small sphere keeps the test run short (a smoke run, no figures).
+    let bench = std::env::args().any(|a| a == "--bench");
+    let full = icosphere(if bench { 7 } else { 4 }, 100.0);
     let mut m = full.clone();
     let mut s: u64 = 12345;
     let mut rand = move || {

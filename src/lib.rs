@@ -9,12 +9,17 @@
 //! Delta-complex) and [`io`] (GIFTI, OBJ, PLY, OFF, tables). Research use
 //! only: not a medical device; results need a trained analyst's review.
 
+pub mod align;
 pub mod cohort;
 pub mod error;
 pub mod inspect;
 pub mod io;
+pub mod map;
 pub mod mesh;
+pub mod moebius;
 pub mod repair;
+pub mod synth;
+pub mod resample;
 
 pub use error::{Error, Result};
 pub use mesh::TriMesh;

@@ -6,10 +6,16 @@
 use clap::{Parser, Subcommand};
 use std::process::ExitCode;
 
+mod align;
 mod convert;
+mod demo;
 mod inspect;
+mod map;
 mod repair;
 mod run;
+mod matrix;
+mod resample;
+mod sphere;
 
 /// Cortical surfaces of a cohort to one common sphere. Research use only:
 /// not a medical device; results need review by a trained analyst.
@@ -28,9 +34,23 @@ enum Command {
     Inspect(inspect::InspectArgs),
     /// Re-encode a GIFTI file (encoding, byte order), keeping all its content.
     Convert(convert::ConvertArgs),
+    /// Write a synthetic study (folded surfaces, maps, landmarks, ground truth) as BIDS derivatives.
+    Demo(demo::DemoArgs),
     /// Repair a surface: merge duplicate vertices, drop degenerate faces and
     /// stray pieces, orient it consistently and outward, fill its holes.
     Repair(repair::RepairArgs),
+    /// Map a closed genus-0 surface to the sphere by exact discrete conformal uniformization.
+    Map(map::MapArgs),
+    /// Moebius-normalise a mapped sphere: centre it and fit its landmarks to a template.
+    Align(align::AlignArgs),
+    /// Estimate a landmark template from a cohort of mapped spheres.
+    Template(align::TemplateArgs),
+    /// Resample per-vertex maps from a subject sphere to a common target sphere.
+    Resample(resample::ResampleArgs),
+    /// Write a built-in target sphere (icosphere:K) as a surface file.
+    Sphere(sphere::SphereArgs),
+    /// Stack resampled maps of a cohort into one GIFTI (and CSV) matrix.
+    Matrix(matrix::MatrixArgs),
 }
 
 /// Run the command line and return the exit status.
@@ -40,7 +60,14 @@ pub fn main() -> ExitCode {
         Command::Run(args) => run::run(args),
         Command::Inspect(args) => inspect::run(args),
         Command::Convert(args) => convert::run(args),
+        Command::Demo(args) => demo::run(args),
         Command::Repair(args) => repair::run(args),
+        Command::Map(args) => map::run(args),
+        Command::Align(args) => align::run_align(args),
+        Command::Template(args) => align::run_template(args),
+        Command::Resample(args) => resample::run(args),
+        Command::Sphere(args) => sphere::run(args),
+        Command::Matrix(args) => matrix::run(args),
     };
     match result {
         Ok(code) => code,

@@ -10,6 +10,7 @@
 //! (inspect reports the rest, repair fixes what it can).
 
 pub mod halfedge;
+pub mod intersect;
 pub mod topology;
 
 use crate::error::{Error, Result};

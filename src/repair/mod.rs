@@ -39,7 +39,8 @@
 //! Everything is sequential and deterministic.
 //!
 //! Limits: non-manifold edges are refused rather than cut apart; a
-//! non-orientable surface is refused. A zero-area face inside an otherwise
+//! non-orientable surface is refused; so is a flat one (a sheet whose
+//! closed-up surface encloses no volume, so outward is undefined). A zero-area face inside an otherwise
 //! closed surface leaves a three-edge hole whose only triangulation is that
 //! same flat triangle, so the log shows the face dropped and a three-edge hole
 //! filled; removing such slivers by edge collapse is not done here. Handles
@@ -465,6 +466,14 @@ pub fn repair(mesh: &TriMesh, opts: &RepairOptions) -> Result<Repaired> {
     // 7. Outward.
     let closed = TriMesh { positions, faces };
     let volume = closed.signed_volume();
+    // A flat closed surface (a sheet closed by a fill lying on it) encloses
+    // no volume: outward is undefined. Rounding leaves about eps * A^(3/2).
+    let area = closed.area();
+    if volume.abs() <= 1e-9 * area * area.sqrt() {
+        return Err(Error::NotReady(format!(
+            "the closed-up surface encloses no volume ({volume:e} mm^3 for {area:.6} mm^2 of area):              it is flat, so outward cannot be told from inward"
+        )));
+    }
     let mut closed = closed;
     if volume < 0.0 {
         for t in &mut closed.faces {

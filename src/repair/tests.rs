@@ -642,3 +642,22 @@ fn torus_keeps_its_handle_and_moebius_strip_is_refused() {
     assert!(matches!(e, Error::NotReady(_)), "{e}");
     assert!(e.to_string().contains("not orientable"), "{e}");
 }
+
+#[test]
+fn flat_sheet_is_refused() {
+    // A single triangle, and a flat square of two: closing them gives a
+    // flat pillow with no volume, so outward is undefined.
+    let tri = TriMesh {
+        positions: vec![[0., 0., 0.], [1., 0., 0.], [0., 1., 0.]],
+        faces: vec![[0, 1, 2]],
+    };
+    let sheet = TriMesh {
+        positions: vec![[0., 0., 0.], [1., 0., 0.], [1., 1., 0.], [0., 1., 0.]],
+        faces: vec![[0, 1, 2], [0, 2, 3]],
+    };
+    for m in [tri, sheet] {
+        let e = repair(&m, &RepairOptions::default()).unwrap_err();
+        assert!(matches!(e, Error::NotReady(_)), "{e}");
+        assert!(e.to_string().contains("no volume"), "{e}");
+    }
+}
