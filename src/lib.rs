@@ -18,8 +18,8 @@ pub mod map;
 pub mod mesh;
 pub mod moebius;
 pub mod repair;
-pub mod synth;
 pub mod resample;
+pub mod synth;
 
 pub use error::{Error, Result};
 pub use mesh::TriMesh;

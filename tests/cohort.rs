@@ -207,7 +207,7 @@ fn demo_cohort_outcomes_follow_the_ground_truth() {
             // Distortion figures present and sane; landmarks fitted to a few
             // degrees (the generator jitters them by 3 degrees per component).
             let p50: f64 = r["angle_distortion_p50"].parse().unwrap();
-            assert!(p50.is_finite() && p50 >= 1.0 && p50 < 3.0, "{r:?}");
+            assert!((1.0..3.0).contains(&p50), "{r:?}");
             let rms: f64 = r["landmark_rms_deg"].parse().unwrap();
             assert!(rms < 20.0, "{r:?}");
             assert_eq!(r["inverted_faces"], "0", "{r:?}");

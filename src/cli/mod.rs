@@ -11,10 +11,10 @@ mod convert;
 mod demo;
 mod inspect;
 mod map;
-mod repair;
-mod run;
 mod matrix;
+mod repair;
 mod resample;
+mod run;
 mod sphere;
 
 /// Cortical surfaces of a cohort to one common sphere. Research use only:
