@@ -13,6 +13,7 @@
 use horosphere::map::{map_to_sphere, MapOptions};
 use horosphere::mesh::shapes::icosphere;
 use horosphere::mesh::TriMesh;
+use horosphere::synth::surface::{folded_surface, SurfaceParams};
 use std::f64::consts::PI;
 use std::time::Instant;
 
@@ -130,8 +131,26 @@ fn main() {
         .filter(|(name, _)| args.is_empty() || args.iter().any(|a| a == name))
         .collect();
     let mut results = Vec::new();
+    let synthetic = std::env::var("HOROSPHERE_BENCH_SURFACE")
+        .map(|v| v != "stand-in")
+        .unwrap_or(true);
     for (name, level) in sizes {
-        let mesh = folded_sphere(level, 0.25, 7);
+        let mesh = if synthetic {
+            // The synthetic cortex (crate::synth), same vertex count.
+            let params = SurfaceParams {
+                vertices: 10 * 4usize.pow(level) + 2,
+                ..SurfaceParams::default()
+            };
+            match folded_surface(&params, 7) {
+                Ok(s) => s.mesh,
+                Err(e) => {
+                    eprintln!("{name}: synthetic surface failed: {e}");
+                    std::process::exit(1);
+                }
+            }
+        } else {
+            folded_sphere(level, 0.25, 7)
+        };
         let t = Instant::now();
         let out = match map_to_sphere(&mesh, &MapOptions::default()) {
             Ok(out) => out,
@@ -144,7 +163,7 @@ fn main() {
         let r = &out.report;
         let tm = &r.times;
         println!(
-            "map {name:>5} ({} vertices, {} path): wall {wall:.2} s [checks {:.2}, delaunay {:.2}, distances {:.2}, solve {:.2} ({} evaluations {:.2}, assemble {:.2}, symbolic {:.2}, numeric {:.2}, solve {:.2}), layout {:.2}, verify {:.2}, metrics {:.2}], iterations {}, factorisations {} (symbolic {}), flips {}/{}/{}, boundary {}, peak RSS {:.0} MB",
+            "map {name:>5} ({} vertices, {} path): wall {wall:.2} s [checks {:.2}, delaunay {:.2}, distances {:.2}, solve {:.2} ({} evaluations {:.2}, assemble {:.2}, symbolic {:.2}, numeric {:.2}, solve {:.2}), layout {:.2} ({}), verify {:.2}, metrics {:.2}], iterations {}, factorisations {} (symbolic {}), flips {}/{}/{}, boundary {}, peak RSS {:.0} MB",
             r.vertices,
             r.path,
             tm.checks,
@@ -158,6 +177,7 @@ fn main() {
             r.solve_profile.numeric,
             r.solve_profile.solve,
             tm.layout,
+            r.layout_method,
             tm.verify,
             tm.metrics,
             r.iterations,

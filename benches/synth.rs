@@ -51,8 +51,13 @@ fn show(label: &str, runs: usize, (best, median, cpu): (Duration, Duration, Opti
 }
 
 fn main() {
-    let n = 160_000;
-    let runs = 5;
+    // `cargo bench` passes `--bench`; `cargo test --all-targets` does not,
+    // and then a small size and single runs keep the test run short (a
+    // smoke run, no figures).
+    let full = std::env::args().any(|a| a == "--bench");
+    let n = if full { 160_000 } else { 20_000 };
+    let runs = if full { 5 } else { 1 };
+    let defect_runs = if full { 3 } else { 1 };
     let r = time(runs, || {
         let p = SurfaceParams {
             vertices: n,
@@ -82,7 +87,7 @@ fn main() {
         show(&format!("synth/subject-2x{n}"), runs, r);
     }
     for (i, hemi, kind) in plan {
-        let r = time(3, || {
+        let r = time(defect_runs, || {
             let s = generate_subject(&params, &people, i).expect("valid parameters");
             std::hint::black_box(s);
         });
@@ -92,7 +97,7 @@ fn main() {
                 kind.label(),
                 hemi.label()
             ),
-            3,
+            defect_runs,
             r,
         );
     }

@@ -4,7 +4,9 @@
 //! matrix acts on stereographic coordinates as the written sphere says
 //! (Needham, "Visual complex analysis", 1997, ch. 3); bad input gives a clear
 //! error naming the file and writes nothing; a cohort with one unreadable
-//! subject still gives a template (exit status 3).
+//! subject still gives a template (exit status 3); a synthetic folded
+//! hemisphere goes through `map` and `align` with residuals of the order of
+//! the planted landmark jitter.
 
 use horosphere::mesh::shapes::icosphere;
 use horosphere::mesh::{dist, norm, scale, Vec3};
@@ -227,6 +229,103 @@ fn output_does_not_depend_on_the_thread_count() {
         "outputs differ between 1 and 3 threads"
     );
     std::fs::remove_dir_all(&dir).unwrap();
+}
+
+#[test]
+fn synthetic_subject_map_then_align() {
+    // The whole chain on a synthetic folded hemisphere (crate::synth, 3,000
+    // vertices): `horosphere map` (exact discrete conformal map), then
+    // `horosphere align` with the generator's landmarks, planted with a
+    // 3-degree jitter per tangent component around the template directions
+    // and snapped to vertices. The residual left after the mobius fit must
+    // be of the order of the planted offsets (their RMS: about 3 sqrt 2
+    // degrees plus snapping); the conformal map of the folded surface is not
+    // the generator's canonical parametrisation, hence the margin of 1.5.
+    use horosphere::synth::maps::{landmark_template, place_landmarks};
+    use horosphere::synth::{folded_surface, SurfaceParams};
+    let dir = temp_dir("chain");
+    let params = SurfaceParams {
+        vertices: 3000,
+        ..SurfaceParams::default()
+    };
+    let surface = folded_surface(&params, 70).unwrap();
+    let native = dir.join("sub-x_hemi-L_white.surf.gii");
+    horosphere::io::write_mesh(&native, &surface.mesh).unwrap();
+    let placed = place_landmarks(&surface, 70, 3.0);
+    let mut csv = String::from("name,vertex\n");
+    let mut tpl = String::new();
+    let mut planted = Vec::new();
+    for (p, l) in placed.iter().zip(landmark_template()) {
+        csv += &format!("{},{}\n", p.name, p.vertex);
+        let t = TemplateLandmarkDir(l.direction);
+        tpl += &format!(
+            "[[landmark]]\nname = \"{}\"\nlatitude = {:?}\nlongitude = {:?}\n\n",
+            l.name,
+            t.latitude(),
+            t.longitude()
+        );
+        planted.push(
+            horosphere::moebius::angle(surface.directions[p.vertex as usize], l.direction)
+                .to_degrees(),
+        );
+    }
+    let planted_rms = (planted.iter().map(|a| a * a).sum::<f64>() / planted.len() as f64).sqrt();
+    let lp = dir.join("landmarks.csv");
+    let tp = dir.join("template.toml");
+    std::fs::write(&lp, csv).unwrap();
+    std::fs::write(&tp, tpl).unwrap();
+    let sphere = dir.join("sub-x_hemi-L_sphere.surf.gii");
+    let o = run(&["map", s(&native), "-o", s(&sphere)]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let out = dir.join("sub-x_hemi-L_space-common_sphere.surf.gii");
+    let rep = dir.join("align.json");
+    let o = run(&[
+        "align",
+        s(&sphere),
+        "--landmarks",
+        s(&lp),
+        "--template",
+        s(&tp),
+        "-o",
+        s(&out),
+        "--surface",
+        s(&native),
+        "--report",
+        s(&rep),
+        "--warn-degrees",
+        "15",
+    ]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let r: serde_json::Value = serde_json::from_slice(&std::fs::read(&rep).unwrap()).unwrap();
+    let rms = r["rms_degrees"].as_f64().unwrap();
+    assert!(
+        rms <= 1.5 * planted_rms,
+        "RMS {rms} vs planted {planted_rms}"
+    );
+    assert!(rms > 0.5, "{rms}");
+    assert_eq!(r["warning"], false);
+    assert!(r["centring"]["centroid_norm"].as_f64().unwrap() < 1e-10);
+    let aligned = horosphere::io::read_mesh(&out).unwrap();
+    assert_eq!(aligned.n_vertices(), surface.mesh.n_vertices());
+    assert_eq!(aligned.faces, surface.mesh.faces);
+    assert!(aligned
+        .positions
+        .iter()
+        .all(|p| (norm(*p) - 100.0).abs() < 1e-3));
+    std::fs::remove_dir_all(&dir).unwrap();
+}
+
+/// Latitude and longitude (degrees) of a unit vector, as in docs/align.md.
+struct TemplateLandmarkDir(Vec3);
+
+impl TemplateLandmarkDir {
+    fn latitude(&self) -> f64 {
+        let x = self.0;
+        x[2].atan2(x[0].hypot(x[1])).to_degrees()
+    }
+    fn longitude(&self) -> f64 {
+        self.0[1].atan2(self.0[0]).to_degrees()
+    }
 }
 
 #[test]

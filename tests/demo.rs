@@ -11,6 +11,7 @@
 
 use horosphere::inspect::{inspect, InspectOptions};
 use horosphere::io::gifti;
+use horosphere::mesh::intersect::self_intersections;
 use sha2::{Digest, Sha256};
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
@@ -121,6 +122,17 @@ fn every_surface_inspects_as_the_ground_truth_says() {
                 Some(k) => panic!("unknown defect {k}"),
             };
             planted += usize::from(!want.is_empty());
+            // No self-intersections after the f32 rounding of GIFTI, except
+            // faces touching across a duplicated seam at coincident vertices.
+            for (f, g) in self_intersections(&mesh) {
+                let pf = mesh.faces[f as usize].map(|v| mesh.positions[v as usize]);
+                let pg = mesh.faces[g as usize].map(|v| mesh.positions[v as usize]);
+                assert!(
+                    h["defect"]["kind"] == "duplicate-vertices"
+                        && pf.iter().any(|p| pg.contains(p)),
+                    "{id} hemi-{hemi}: faces {f} and {g} cross"
+                );
+            }
             assert_eq!(codes, want, "{id} hemi-{hemi}");
             assert_eq!(r.ready_to_map, want.is_empty());
             // Maps: one value per vertex, in range.

@@ -950,6 +950,35 @@ fn commands_sphere_resample_and_matrix() {
         assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
         assert_eq!(gifti::read_shape(&same).unwrap().values, thick);
 
+        // Byte-identical outputs with 1 and 2 threads.
+        let mut bytes = Vec::new();
+        for threads in ["1", "2"] {
+            let o = d.join(format!("t{threads}.shape.gii"));
+            let r = std::process::Command::new(env!("CARGO_BIN_EXE_horosphere"))
+                .env("RAYON_NUM_THREADS", threads)
+                .args([
+                    "resample",
+                    "--sphere",
+                    s(&sphere),
+                    "--data",
+                    s(&data),
+                    "--target",
+                    "icosphere:5",
+                    "-o",
+                    s(&o),
+                ])
+                .output()
+                .unwrap();
+            assert!(r.status.success(), "{}", String::from_utf8_lossy(&r.stderr));
+            bytes.push((
+                std::fs::read(&o).unwrap(),
+                std::fs::read(d.join(format!("t{threads}.json"))).unwrap(),
+            ));
+        }
+        assert_eq!(bytes[0].0, bytes[1].0);
+        // The sidecars hold no output name and no time stamp: equal too.
+        assert_eq!(bytes[0].1, bytes[1].1);
+
         // Smoothing on the native surface (here the sphere itself).
         let o = run(&[
             "resample",

@@ -179,8 +179,10 @@ pub struct MapReport {
     pub times: PhaseTimes,
     /// Number of disk boundary vertices (joined to the pole at the end).
     pub boundary_vertices: usize,
-    /// Largest layout residual.
+    /// Largest layout residual (unit-scale triangle equations).
     pub layout_residual: f64,
+    /// Layout method: `"harmonic"` or `"least-squares"`.
+    pub layout_method: String,
     /// The verification figures (residuals).
     pub verification: Verification,
     /// Per input face, the ratio of the singular values of the linear map
@@ -188,7 +190,9 @@ pub struct MapReport {
     pub angle_distortion: Percentiles,
     /// Per input face, `ln((A_sphere / total) / (A_input / total))`.
     pub log_area_ratio: Percentiles,
-    /// Input faces whose image on the sphere is inverted.
+    /// Input faces whose image on the sphere is inverted: the chord
+    /// triangle's normal points into the sphere (for images smaller than a
+    /// hemisphere, i.e. all but the coarsest meshes).
     pub inverted_faces: usize,
     /// The Newton iteration log.
     pub iteration_log: Vec<IterationRecord>,
@@ -376,6 +380,38 @@ fn lay_out(
     Ok((lay, points))
 }
 
+/// The harmonic layout with the last Newton factor (see
+/// [`layout::layout_disk_harmonic`]); errors send the caller to [`lay_out`].
+fn lay_out_fast(
+    sol: &mut solver::Solution,
+    d: &[f64],
+    pole: u32,
+) -> Result<(layout::Layout, Vec<[f64; 3]>)> {
+    let u: Vec<f64> = sol.s.iter().zip(d).map(|(s, d)| s - d).collect();
+    let sc = Scaling {
+        u: &u,
+        pole,
+        t: sol.t,
+    };
+    let Some((factor, fvar)) = sol.newton.as_mut() else {
+        return Err(Error::Algorithm {
+            stage: "map: harmonic layout",
+            message: "no Newton factor".into(),
+        });
+    };
+    let lay = layout::layout_disk_harmonic(
+        &sol.tri,
+        &sc,
+        &sol.eval.angle,
+        &sol.eval.cot,
+        factor,
+        fvar,
+        1e-9,
+    )?;
+    let points = layout::project(&lay.z, pole);
+    Ok((lay, points))
+}
+
 fn verify_solution(
     sol: &solver::Solution,
     d: &[f64],
@@ -436,7 +472,8 @@ fn fast_path(
     // KKT of the guess: the held vertices must want to stay on their bounds
     // (disk angle below pi), checked by the verification's boundary test.
     let t = Instant::now();
-    let (lay, points) = lay_out(&sol, &d, pole)?;
+    let mut sol = sol;
+    let (lay, points) = lay_out_fast(&mut sol, &d, pole).or_else(|_| lay_out(&sol, &d, pole))?;
     times.layout = t.elapsed().as_secs_f64();
     let t = Instant::now();
     let ver = verify_solution(&sol, &d, pole, &lay, &points, opts).map_err(|e| {
@@ -521,6 +558,7 @@ fn run(mesh: &TriMesh, opts: &MapOptions, report: &mut MapReport) -> Result<Mapp
     report.flips_solve = sol.flips;
     report.solve_profile = sol.profile.clone();
     report.layout_residual = lay.residual;
+    report.layout_method = lay.method.clone();
     report.boundary_vertices = ver.boundary_vertices;
     report.verification = ver;
 

@@ -97,7 +97,7 @@ pub struct IterationRecord {
 }
 
 /// Result of the minimisation.
-#[derive(Debug, Clone)]
+#[derive(Debug)]
 pub struct Solution {
     /// Slack per vertex (`0` at the pole).
     pub s: Vec<f64>,
@@ -117,6 +117,9 @@ pub struct Solution {
     pub symbolic_analyses: usize,
     /// Where the time went.
     pub profile: SolveProfile,
+    /// The last Newton matrix's factorisation and its numbering of the free
+    /// vertices (`FIXED` for the others), reused by the layout.
+    pub newton: Option<(SparseSpd<f64>, Vec<u32>)>,
 }
 
 /// Seconds per part of the solve.
@@ -467,22 +470,30 @@ fn solve_general(
             }
         }
     }
+    let profile = SolveProfile {
+        evaluations: n_eval,
+        evaluate: time_eval,
+        assemble: spd.time_assemble,
+        symbolic: spd.time_symbolic,
+        numeric: spd.time_numeric,
+        solve: spd.time_solve,
+    };
+    let (factorizations, symbolic_analyses) = (spd.n_numeric, spd.n_symbolic);
+    let newton = if factorizations > 0 {
+        Some((spd, fvar))
+    } else {
+        None
+    };
     Ok(Solution {
+        newton,
         s,
         t,
         tri,
         eval: ev,
         iterations,
         flips,
-        factorizations: spd.n_numeric,
-        symbolic_analyses: spd.n_symbolic,
-        profile: SolveProfile {
-            evaluations: n_eval,
-            evaluate: time_eval,
-            assemble: spd.time_assemble,
-            symbolic: spd.time_symbolic,
-            numeric: spd.time_numeric,
-            solve: spd.time_solve,
-        },
+        factorizations,
+        symbolic_analyses,
+        profile,
     })
 }

@@ -51,6 +51,8 @@ pub struct SparseSpd<T: Scalar = f64> {
     /// reused when the pattern changes but the size does not: flips change
     /// a few entries, and the ordering stays good.
     ordering: Option<(Vec<usize>, Vec<usize>)>,
+    /// Nonzeros of the factor per nonzero of the matrix with a fresh ordering.
+    fill_ratio: f64,
 }
 
 impl<T: Scalar> Default for SparseSpd<T> {
@@ -69,6 +71,7 @@ impl<T: Scalar> Default for SparseSpd<T> {
             time_solve: 0.0,
             scratch: Vec::new(),
             ordering: None,
+            fill_ratio: 0.0,
         }
     }
 }
@@ -147,23 +150,37 @@ impl<T: Scalar> SparseSpd<T> {
         self.time_assemble += t0.elapsed().as_secs_f64();
         let t0 = std::time::Instant::now();
         if !same {
-            let reuse = self.ordering.as_ref().filter(|(f, _)| f.len() == n);
-            let ordering = match reuse {
-                Some((fwd, inv)) => SymmetricOrdering::Custom(PermRef::new_checked(fwd, inv, n)),
-                None => SymmetricOrdering::Amd,
-            };
-            let sym =
+            let analyse = |ordering: SymmetricOrdering<'_, usize>| {
                 factorize_symbolic_cholesky(pattern, Side::Lower, ordering, Default::default())
                     .map_err(|e| Error::Algorithm {
                         stage: "map: sparse Cholesky (symbolic)",
                         message: format!("{e:?}"),
-                    })?;
-            if reuse.is_none() {
-                self.ordering = sym.perm().map(|p| {
-                    let (f, i) = p.arrays();
-                    (f.to_vec(), i.to_vec())
-                });
+                    })
+            };
+            // Reuse the last fill-reducing ordering while the fill it gives
+            // stays within 25% of what a fresh ordering gave (scaled by the
+            // matrix size); flips can change the graph a lot, and a stale
+            // ordering then costs far more in the numeric factorisation.
+            let mut sym = None;
+            if let Some((fwd, inv)) = self.ordering.as_ref().filter(|(f, _)| f.len() == n) {
+                let cand = analyse(SymmetricOrdering::Custom(PermRef::new_checked(fwd, inv, n)))?;
+                let budget = 1.25 * self.fill_ratio * self.row_idx.len() as f64;
+                if (cand.len_val() as f64) <= budget {
+                    sym = Some(cand);
+                }
             }
+            let sym = match sym {
+                Some(s) => s,
+                None => {
+                    let fresh = analyse(SymmetricOrdering::Amd)?;
+                    self.ordering = fresh.perm().map(|p| {
+                        let (f, i) = p.arrays();
+                        (f.to_vec(), i.to_vec())
+                    });
+                    self.fill_ratio = fresh.len_val() as f64 / self.row_idx.len().max(1) as f64;
+                    fresh
+                }
+            };
             self.factor.clear();
             self.factor.resize(sym.len_val(), T::default());
             self.symbolic = Some(sym);

@@ -16,10 +16,10 @@
 //! `(a x b).t`, `(b x c).t`, `(c x a).t` are all `>= 0`; these are also,
 //! up to a common factor, the barycentric coordinates (of `c`, `a` and `b`)
 //! of the point where the ray through `t` meets the plane of the flat
-//! triangle, which are the weights used. The triple product of a shared
-//! edge is computed from the same two vectors in the two triangles, and is
-//! exactly negated between them in floating point, so no direction falls
-//! between two triangles.
+//! triangle, which are the weights used. The walk decides each sign
+//! exactly ([`super::predicates::orient`] with the origin, after a float
+//! filter), so a direction is never outside both triangles of an edge and
+//! a walk cannot circle a vertex that the target sits on.
 //!
 //! Search: a coarse grid of cells uniform in `z` and longitude (equal-area
 //! cells), each holding a triangle near its centre, gives the start of a

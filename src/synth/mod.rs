@@ -1,7 +1,7 @@
 //! Synthetic cortex: folded hemisphere surfaces, per-vertex maps, planted
 //! defects and whole demo cohorts, made by our own code from a seed.
 //!
-//! In: options ([`SurfaceParams`], [`CohortParams`]) and a seed. Out:
+//! In: options ([`SurfaceParams`], [`cohort::CohortParams`]) and a seed. Out:
 //! meshes in millimetres with thickness, depth and region maps, landmarks,
 //! and the ground truth of what was planted. Invariants: the same options
 //! and seed give the same bits on every run and with any number of threads

@@ -27,22 +27,27 @@
 //!   smaller ones, for curved sulci) tapering to zero at both ends, from a
 //!   template shared by all subjects and moved by a few degrees and rescaled
 //!   per subject, so they correspond across a cohort;
-//! - *secondary* sulci: the boundaries of the spherical Voronoi cells of
-//!   per-subject seed points spread by dart throwing at the gyral spacing.
-//!   Near the boundary of the cells of seeds `i` and `j` the distance to it
-//!   is taken as `(theta_j - theta_i) / 2` (angles to the seeds, times the
-//!   envelope radius), which is continuous across cell boundaries; each
-//!   boundary has its own random depth, and a fraction of them are left out
-//!   so that neighbouring cells merge into longer, winding gyri.
+//! - *secondary* sulci: the boundaries of the Voronoi cells of per-subject
+//!   seed points spread over the unfolded envelope by dart throwing at the
+//!   gyral spacing. Near the boundary of the cells of seeds `i` and `j` the
+//!   distance to it is taken as `(d_j - d_i) / 2` (`d` the distances in mm
+//!   from the point of the unfolded envelope to the seeds), which is
+//!   continuous across cell boundaries; each boundary has its own random
+//!   depth, and a fraction of them are left out so that neighbouring cells
+//!   merge into longer, winding gyri.
 //!
 //! All distances (sulcus widths, spacings) are measured in mm between
 //! points of the unfolded, flattened ellipsoid, so folds have the same
-//! width everywhere on the elongated shape.
+//! width everywhere on the elongated shape. Steep sulcal walls would get
+//! long, thin triangles from an even spread of directions, so a few rounds
+//! of stretch-weighted relaxation ([`SurfaceParams::relax_rounds`]) move
+//! vertices into the walls before the final positions are taken.
 //!
 //! Why no self-intersections: the faces of the base sphere tile it as
 //! spherical triangles (and still do after the warp, a positive diagonal
-//! map followed by normalisation), so the cones from the centre over the faces meet
-//! only along shared edges; a face displaced radially with positive radii
+//! map followed by normalisation, and after relaxation, which undoes any
+//! move that would turn a face over), so the cones from the centre over
+//! the faces meet only along shared edges; a face displaced radially with positive radii
 //! stays inside its own cone, so two faces can only meet where their cones
 //! do, at shared vertices and edges. The right hemisphere is the mirror
 //! image (`x -> -x`, faces reversed to stay outward) of a surface built in
@@ -268,7 +273,7 @@ pub struct Sulcus {
     /// A ball holding `path`: centre and radius (mm).
     #[serde(skip)]
     pub bound: (Vec3, f64),
-    /// Balls holding runs of [`CHUNK`] segments: (first point, centre, radius).
+    /// Balls holding runs of 8 segments: (first point, centre, radius).
     #[serde(skip)]
     pub chunks: Vec<(usize, Vec3, f64)>,
 }

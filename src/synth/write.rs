@@ -291,6 +291,9 @@ except these, which carry one defect each on purpose:\n\
 \n\
 {defects}\n\
 \n\
+The vertices of a stray piece carry thickness 0, depth 0 and the region\n\
+`unlabelled`; `ground_truth.json` gives each defect's place and counts.\n\
+\n\
 ## Caution\n\
 \n\
 For research and software testing only: not a medical device, not for\n\
