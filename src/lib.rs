@@ -10,6 +10,7 @@
 //! only: not a medical device; results need a trained analyst's review.
 
 pub mod align;
+pub mod cohort;
 pub mod error;
 pub mod inspect;
 pub mod io;

@@ -14,6 +14,7 @@ mod map;
 mod matrix;
 mod repair;
 mod resample;
+mod run;
 mod sphere;
 
 /// Cortical surfaces of a cohort to one common sphere. Research use only:
@@ -27,6 +28,8 @@ pub struct Cli {
 
 #[derive(Subcommand, Debug)]
 enum Command {
+    /// Run a cohort study: every subject and hemisphere through inspect, repair, map, align, resample; then matrices and a QC table.
+    Run(run::RunArgs),
     /// Report the topology and geometry of a surface mesh and whether it is ready to map.
     Inspect(inspect::InspectArgs),
     /// Re-encode a GIFTI file (encoding, byte order), keeping all its content.
@@ -54,6 +57,7 @@ enum Command {
 pub fn main() -> ExitCode {
     let cli = Cli::parse();
     let result: horosphere::Result<ExitCode> = match &cli.command {
+        Command::Run(args) => run::run(args),
         Command::Inspect(args) => inspect::run(args),
         Command::Convert(args) => convert::run(args),
         Command::Demo(args) => demo::run(args),
