@@ -17,7 +17,7 @@ import sys
 import pytest
 
 REPO = pathlib.Path(__file__).resolve().parents[2]
-BIN = os.environ.get("HOROSPHERE_BIN", str(REPO / "target" / "debug" / "horosphere"))
+BIN = os.path.abspath(os.environ.get("HOROSPHERE_BIN", str(REPO / "target" / "debug" / "horosphere")))
 
 
 def tree(root):
