@@ -186,7 +186,7 @@ pub fn run(args: &RunArgs) -> Result<ExitCode> {
                 .group
                 .as_ref()
                 .map(|g| format!(
-                    "; cohort QC table: {} failed of {}",
+                    "; {} failed in the cohort QC table {}",
                     g.failed,
                     manifest.output.join("group/desc-cohort_qc.csv").display()
                 ))
