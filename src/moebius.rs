@@ -512,52 +512,10 @@ pub fn angle(a: Vec3, b: Vec3) -> f64 {
     norm(cross(a, b)).atan2(dot(a, b))
 }
 
-/// A small deterministic random number generator (SplitMix64; Steele, Lea,
-/// Flood, "Fast splittable pseudorandom number generators", OOPSLA 2014),
-/// for seeded test data and random transformations.
-#[derive(Debug, Clone)]
-pub struct SeededRng {
-    state: u64,
-}
-
-impl SeededRng {
-    /// A generator started from `seed`.
-    pub fn new(seed: u64) -> Self {
-        SeededRng { state: seed }
-    }
-
-    /// The next 64 random bits.
-    pub fn next_u64(&mut self) -> u64 {
-        self.state = self.state.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = self.state;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        z ^ (z >> 31)
-    }
-
-    /// Uniform in `[0, 1)` with 53 random bits.
-    pub fn uniform(&mut self) -> f64 {
-        (self.next_u64() >> 11) as f64 * (1.0 / (1u64 << 53) as f64)
-    }
-
-    /// Standard normal (Box-Muller).
-    pub fn normal(&mut self) -> f64 {
-        let u1 = 1.0 - self.uniform(); // in (0, 1]
-        let u2 = self.uniform();
-        (-2.0 * u1.ln()).sqrt() * (std::f64::consts::TAU * u2).cos()
-    }
-
-    /// Uniformly distributed unit vector (normalised Gaussian vector).
-    pub fn unit_vector(&mut self) -> Vec3 {
-        loop {
-            let v = [self.normal(), self.normal(), self.normal()];
-            let n = norm(v);
-            if n > 1e-6 {
-                return scale(v, 1.0 / n);
-            }
-        }
-    }
-}
+/// The seeded generator for random Moebius maps and test data: plain
+/// SplitMix64 (Steele, Lea, Flood, "Fast splittable pseudorandom number
+/// generators", OOPSLA 2014), shared with the synthetic-data module.
+pub use crate::synth::rng::SplitMix64 as SeededRng;
 
 fn mul2(a: &Mat2c, b: &Mat2c) -> Mat2c {
     [

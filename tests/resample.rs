@@ -25,28 +25,12 @@ use horosphere::resample::target::Target;
 use horosphere::resample::{
     resample_located, resample_maps, InputMap, MapValues, Method, ResampleOptions,
 };
+use horosphere::synth::rng::{mat_vec, quaternion_matrix, SplitMix64 as SeededRng};
 use horosphere::TriMesh;
 use std::f64::consts::PI;
 use std::path::{Path, PathBuf};
 
 // ---------------------------------------------------------------- helpers
-
-/// Small deterministic generator (64-bit LCG, Knuth's MMIX constants).
-struct Lcg(u64);
-impl Lcg {
-    fn unit(&mut self) -> f64 {
-        self.0 = self
-            .0
-            .wrapping_mul(6364136223846793005)
-            .wrapping_add(1442695040888963407);
-        (self.0 >> 11) as f64 / (1u64 << 53) as f64
-    }
-    fn normal(&mut self) -> f64 {
-        // Box-Muller.
-        let (u, v) = (self.unit().max(1e-300), self.unit());
-        (-2.0 * u.ln()).sqrt() * (2.0 * PI * v).cos()
-    }
-}
 
 fn scratch(name: &str) -> PathBuf {
     let d = std::env::temp_dir().join(format!(
@@ -59,32 +43,11 @@ fn scratch(name: &str) -> PathBuf {
 }
 
 /// Rotation matrix of a random unit quaternion (Shoemake, "Uniform random
-/// rotations", Graphics Gems III, 1992).
-fn random_rotation(rng: &mut Lcg) -> [[f64; 3]; 3] {
+/// rotations", Graphics Gems III, 1992): a normalised Gaussian 4-vector.
+fn random_rotation(rng: &mut SeededRng) -> [[f64; 3]; 3] {
     let q: Vec<f64> = (0..4).map(|_| rng.normal()).collect();
     let l = q.iter().map(|x| x * x).sum::<f64>().sqrt();
-    let (w, x, y, z) = (q[0] / l, q[1] / l, q[2] / l, q[3] / l);
-    [
-        [
-            1.0 - 2.0 * (y * y + z * z),
-            2.0 * (x * y - w * z),
-            2.0 * (x * z + w * y),
-        ],
-        [
-            2.0 * (x * y + w * z),
-            1.0 - 2.0 * (x * x + z * z),
-            2.0 * (y * z - w * x),
-        ],
-        [
-            2.0 * (x * z - w * y),
-            2.0 * (y * z + w * x),
-            1.0 - 2.0 * (x * x + y * y),
-        ],
-    ]
-}
-
-fn apply(r: &[[f64; 3]; 3], p: Vec3) -> Vec3 {
-    [dot(r[0], p), dot(r[1], p), dot(r[2], p)]
+    quaternion_matrix([q[1] / l, q[2] / l, q[3] / l, q[0] / l])
 }
 
 /// Icosahedral sphere of `level`, each vertex moved in a random tangent
@@ -92,20 +55,20 @@ fn apply(r: &[[f64; 3]; 3], p: Vec3) -> Vec3 {
 /// to radius `radius`, then rotated at random.
 fn jittered_sphere(level: u32, radius: f64, jitter: f64, seed: u64) -> TriMesh {
     let mut m = icosphere(level, 1.0);
-    let mut rng = Lcg(seed);
+    let mut rng = SeededRng::new(seed);
     let edge = 1.1 / 2f64.powi(level as i32);
     let rot = random_rotation(&mut rng);
     for p in &mut m.positions {
         let d = [rng.normal(), rng.normal(), rng.normal()];
         let t = sub(d, [p[0] * dot(d, *p), p[1] * dot(d, *p), p[2] * dot(d, *p)]);
         let tl = norm(t).max(1e-12);
-        let s = jitter * edge * rng.unit();
+        let s = jitter * edge * rng.uniform();
         let q = [
             p[0] + s * t[0] / tl,
             p[1] + s * t[1] / tl,
             p[2] + s * t[2] / tl,
         ];
-        let q = apply(&rot, q);
+        let q = mat_vec(&rot, q);
         let l = norm(q);
         *p = [radius * q[0] / l, radius * q[1] / l, radius * q[2] / l];
     }
@@ -304,7 +267,7 @@ fn own_spherical_harmonics_match_closed_forms() {
     // sin^2(theta) cos(2 phi); real Y_1^-1 = sqrt(3/(4 pi)) sin(theta)
     // sin(phi) (standard tables, e.g. Jackson, "Classical
     // electrodynamics", 3rd ed. 1999, section 3.6, made real).
-    let mut rng = Lcg(3);
+    let mut rng = SeededRng::new(3);
     for _ in 0..100 {
         let p = [rng.normal(), rng.normal(), rng.normal()];
         let r = norm(p);
@@ -383,7 +346,7 @@ fn octant_labels(m: &TriMesh) -> (Vec<i32>, LabelTable) {
 #[test]
 fn identical_spheres_give_the_input_exactly() {
     let m = jittered_sphere(4, 100.0, 0.3, 5);
-    let mut rng = Lcg(9);
+    let mut rng = SeededRng::new(9);
     let x: Vec<f64> = (0..m.n_vertices()).map(|_| rng.normal()).collect();
     let (keys, table) = octant_labels(&m);
     let maps = [

@@ -116,17 +116,7 @@ pub struct Fit {
 /// names matched case-insensitively, surrounding spaces ignored). Names must
 /// be non-empty and unique.
 pub fn read_landmarks(path: &Path) -> Result<Vec<RawLandmark>> {
-    let bytes = std::fs::read(path).map_err(|e| Error::io(path, e))?;
-    let mut rdr = csv::ReaderBuilder::new()
-        .has_headers(true)
-        .trim(csv::Trim::All)
-        .from_reader(bytes.as_slice());
-    let header: Vec<String> = rdr
-        .headers()
-        .map_err(|e| Error::bad_file(path, "header", e.to_string()))?
-        .iter()
-        .map(|h| h.to_ascii_lowercase())
-        .collect();
+    let (mut rdr, header) = super::open_csv(path)?;
     let by_vertex = header == ["name", "vertex"];
     let by_point = header == ["name", "x", "y", "z"];
     if !by_vertex && !by_point {
@@ -141,10 +131,8 @@ pub fn read_landmarks(path: &Path) -> Result<Vec<RawLandmark>> {
     }
     let mut out = Vec::new();
     let mut seen = HashSet::new();
-    for (k, rec) in rdr.records().enumerate() {
-        let line = k + 2;
-        let element = format!("line {line}");
-        let rec = rec.map_err(|e| Error::bad_file(path, &element, e.to_string()))?;
+    for row in super::csv_rows(path, &mut rdr) {
+        let (line, element, rec) = row?;
         let field = |i: usize| rec.get(i).unwrap_or("");
         let name = field(0).to_string();
         if name.is_empty() {

@@ -212,6 +212,41 @@ pub fn align(
     })
 }
 
+/// Reader of a CSV table held in memory.
+pub(crate) type CsvReader = csv::Reader<std::io::Cursor<Vec<u8>>>;
+
+/// A CSV table read whole, as its reader and its lower-cased header
+/// (fields trimmed); shared by the landmark and cohort-table readers.
+pub(crate) fn open_csv(path: &std::path::Path) -> Result<(CsvReader, Vec<String>)> {
+    let bytes = std::fs::read(path).map_err(|e| Error::io(path, e))?;
+    let mut rdr = csv::ReaderBuilder::new()
+        .has_headers(true)
+        .trim(csv::Trim::All)
+        .from_reader(std::io::Cursor::new(bytes));
+    let header: Vec<String> = rdr
+        .headers()
+        .map_err(|e| Error::bad_file(path, "header", e.to_string()))?
+        .iter()
+        .map(|h| h.to_ascii_lowercase())
+        .collect();
+    Ok((rdr, header))
+}
+
+/// The data rows of a table opened by [`open_csv`], each with its 1-based
+/// line number (the header is line 1) and the element name `line N`; a row
+/// the CSV parser refuses is an error naming that line.
+pub(crate) fn csv_rows<'a>(
+    path: &'a std::path::Path,
+    rdr: &'a mut CsvReader,
+) -> impl Iterator<Item = Result<(usize, String, csv::StringRecord)>> + 'a {
+    rdr.records().enumerate().map(move |(k, rec)| {
+        let line = k + 2;
+        let element = format!("line {line}");
+        let rec = rec.map_err(|e| Error::bad_file(path, &element, e.to_string()))?;
+        Ok((line, element, rec))
+    })
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

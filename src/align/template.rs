@@ -483,17 +483,7 @@ pub struct CohortEntry {
 /// paths are taken relative to the table's folder. Subject labels must be
 /// unique.
 pub fn read_cohort(path: &Path) -> Result<Vec<CohortEntry>> {
-    let bytes = std::fs::read(path).map_err(|e| Error::io(path, e))?;
-    let mut rdr = csv::ReaderBuilder::new()
-        .has_headers(true)
-        .trim(csv::Trim::All)
-        .from_reader(bytes.as_slice());
-    let header: Vec<String> = rdr
-        .headers()
-        .map_err(|e| Error::bad_file(path, "header", e.to_string()))?
-        .iter()
-        .map(|h| h.to_ascii_lowercase())
-        .collect();
+    let (mut rdr, header) = super::open_csv(path)?;
     let has_surface = header == ["subject", "sphere", "landmarks", "surface"];
     if !has_surface && header != ["subject", "sphere", "landmarks"] {
         return Err(Error::bad_file(
@@ -512,10 +502,8 @@ pub fn read_cohort(path: &Path) -> Result<Vec<CohortEntry>> {
         }
     };
     let mut out: Vec<CohortEntry> = Vec::new();
-    for (k, rec) in rdr.records().enumerate() {
-        let line = k + 2;
-        let element = format!("line {line}");
-        let rec = rec.map_err(|e| Error::bad_file(path, &element, e.to_string()))?;
+    for row in super::csv_rows(path, &mut rdr) {
+        let (line, element, rec) = row?;
         let field = |i: usize| rec.get(i).unwrap_or("");
         for (i, what) in [(0, "subject"), (1, "sphere"), (2, "landmarks")] {
             if field(i).is_empty() {

@@ -241,6 +241,56 @@ pub(crate) fn fmt_coordinate(x: f64) -> String {
     format!("{x:?}")
 }
 
+/// Write one text line `{prefix}x y z` per vertex, coordinates formatted by
+/// [`fmt_coordinate`] (shared by the OBJ, OFF and ASCII PLY writers).
+pub(crate) fn write_vertex_lines(
+    w: &mut dyn std::io::Write,
+    mesh: &TriMesh,
+    prefix: &str,
+) -> std::io::Result<()> {
+    for p in &mesh.positions {
+        writeln!(
+            w,
+            "{prefix}{} {} {}",
+            fmt_coordinate(p[0]),
+            fmt_coordinate(p[1]),
+            fmt_coordinate(p[2])
+        )?;
+    }
+    Ok(())
+}
+
+/// Write one text line `{prefix}a b c` per triangle, the corner indices
+/// offset by `base` (1 for OBJ, 0 for OFF and ASCII PLY).
+pub(crate) fn write_triangle_lines(
+    w: &mut dyn std::io::Write,
+    mesh: &TriMesh,
+    prefix: &str,
+    base: u64,
+) -> std::io::Result<()> {
+    for t in &mesh.faces {
+        writeln!(
+            w,
+            "{prefix}{} {} {}",
+            u64::from(t[0]) + base,
+            u64::from(t[1]) + base,
+            u64::from(t[2]) + base
+        )?;
+    }
+    Ok(())
+}
+
+/// Validate `mesh`, then write it to `path` atomically with `write_to`
+/// (the shared tail of the text-format writers); I/O errors name `path`.
+pub(crate) fn write_validated(
+    path: &Path,
+    mesh: &TriMesh,
+    write_to: impl FnOnce(&mut dyn std::io::Write, &TriMesh) -> std::io::Result<()>,
+) -> Result<()> {
+    mesh.validate()?;
+    atomic::write_atomic(path, |w| write_to(w, mesh).map_err(|e| Error::io(path, e)))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -16,9 +16,11 @@
 //! Writing: `v x y z` with round-trip exact coordinates, then `f a b c`
 //! (1-based), atomically.
 
-use super::{fmt_coordinate, line_text, parse_coordinate, push_fan, read_bytes, Lines};
+use super::{
+    line_text, parse_coordinate, push_fan, read_bytes, write_triangle_lines, write_validated,
+    write_vertex_lines, Lines,
+};
 use crate::error::{Error, Result};
-use crate::io::atomic::write_atomic;
 use crate::mesh::TriMesh;
 use std::io::Write;
 use std::path::Path;
@@ -149,31 +151,13 @@ pub fn write_to(w: &mut dyn Write, mesh: &TriMesh) -> std::io::Result<()> {
         mesh.n_vertices(),
         mesh.n_faces()
     )?;
-    for p in &mesh.positions {
-        writeln!(
-            w,
-            "v {} {} {}",
-            fmt_coordinate(p[0]),
-            fmt_coordinate(p[1]),
-            fmt_coordinate(p[2])
-        )?;
-    }
-    for t in &mesh.faces {
-        writeln!(
-            w,
-            "f {} {} {}",
-            t[0] as u64 + 1,
-            t[1] as u64 + 1,
-            t[2] as u64 + 1
-        )?;
-    }
-    Ok(())
+    write_vertex_lines(w, mesh, "v ")?;
+    write_triangle_lines(w, mesh, "f ", 1)
 }
 
 /// Write `mesh` to `path` as OBJ, atomically. The mesh is validated first.
 pub fn write_mesh(path: &Path, mesh: &TriMesh) -> Result<()> {
-    mesh.validate()?;
-    write_atomic(path, |w| write_to(w, mesh).map_err(|e| Error::io(path, e)))
+    write_validated(path, mesh, write_to)
 }
 
 #[cfg(test)]

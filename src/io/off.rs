@@ -19,9 +19,11 @@
 //! Writing: `OFF`, `nv nf 0`, round-trip exact coordinates, `3 a b c`,
 //! atomically.
 
-use super::{fmt_coordinate, line_text, parse_coordinate, push_fan, read_bytes, Lines};
+use super::{
+    line_text, parse_coordinate, push_fan, read_bytes, write_triangle_lines, write_validated,
+    write_vertex_lines, Lines,
+};
 use crate::error::{Error, Result};
-use crate::io::atomic::write_atomic;
 use crate::mesh::TriMesh;
 use std::io::Write;
 use std::path::Path;
@@ -226,25 +228,13 @@ pub fn parse(path: &Path, bytes: &[u8]) -> Result<TriMesh> {
 pub fn write_to(w: &mut dyn Write, mesh: &TriMesh) -> std::io::Result<()> {
     writeln!(w, "OFF")?;
     writeln!(w, "{} {} 0", mesh.n_vertices(), mesh.n_faces())?;
-    for p in &mesh.positions {
-        writeln!(
-            w,
-            "{} {} {}",
-            fmt_coordinate(p[0]),
-            fmt_coordinate(p[1]),
-            fmt_coordinate(p[2])
-        )?;
-    }
-    for t in &mesh.faces {
-        writeln!(w, "3 {} {} {}", t[0], t[1], t[2])?;
-    }
-    Ok(())
+    write_vertex_lines(w, mesh, "")?;
+    write_triangle_lines(w, mesh, "3 ", 0)
 }
 
 /// Write `mesh` to `path` as OFF, atomically. The mesh is validated first.
 pub fn write_mesh(path: &Path, mesh: &TriMesh) -> Result<()> {
-    mesh.validate()?;
-    write_atomic(path, |w| write_to(w, mesh).map_err(|e| Error::io(path, e)))
+    write_validated(path, mesh, write_to)
 }
 
 #[cfg(test)]

@@ -24,9 +24,11 @@
 //! vertex_indices`, or `uint` above 2^31 - 1 vertices), or any encoding
 //! through [`write_mesh_as`]; ASCII coordinates are round-trip exact.
 
-use super::{fmt_coordinate, line_text, push_fan, read_bytes, Lines};
+use super::{
+    line_text, push_fan, read_bytes, write_triangle_lines, write_validated, write_vertex_lines,
+    Lines,
+};
 use crate::error::{Error, Result};
-use crate::io::atomic::write_atomic;
 use crate::mesh::TriMesh;
 use std::io::Write;
 use std::path::Path;
@@ -679,18 +681,8 @@ pub fn write_to(w: &mut dyn Write, mesh: &TriMesh, encoding: PlyEncoding) -> std
     )?;
     match encoding {
         PlyEncoding::Ascii => {
-            for p in &mesh.positions {
-                writeln!(
-                    w,
-                    "{} {} {}",
-                    fmt_coordinate(p[0]),
-                    fmt_coordinate(p[1]),
-                    fmt_coordinate(p[2])
-                )?;
-            }
-            for t in &mesh.faces {
-                writeln!(w, "3 {} {} {}", t[0], t[1], t[2])?;
-            }
+            write_vertex_lines(w, mesh, "")?;
+            write_triangle_lines(w, mesh, "3 ", 0)?;
         }
         PlyEncoding::BinaryLittleEndian | PlyEncoding::BinaryBigEndian => {
             let big = encoding == PlyEncoding::BinaryBigEndian;
@@ -727,10 +719,7 @@ pub fn write_mesh(path: &Path, mesh: &TriMesh) -> Result<()> {
 /// Write `mesh` to `path` as PLY with the given encoding, atomically. The
 /// mesh is validated first.
 pub fn write_mesh_as(path: &Path, mesh: &TriMesh, encoding: PlyEncoding) -> Result<()> {
-    mesh.validate()?;
-    write_atomic(path, |w| {
-        write_to(w, mesh, encoding).map_err(|e| Error::io(path, e))
-    })
+    write_validated(path, mesh, |w, m| write_to(w, m, encoding))
 }
 
 #[cfg(test)]

@@ -15,7 +15,7 @@
 //! rotations follow Shoemake ("Uniform random rotations", Graphics Gems III,
 //! 1992): a uniformly distributed unit quaternion.
 
-use crate::mesh::Vec3;
+use crate::mesh::{norm, scale, Vec3};
 
 /// One step of SplitMix64 on `state`; returns the output.
 #[inline]
@@ -37,6 +37,58 @@ pub fn derive_seed(seed: u64, label: &str) -> u64 {
         h ^= splitmix64(&mut s);
     }
     h
+}
+
+/// Uniform in `[0, 1)` from the top 53 of 64 random bits.
+#[inline]
+pub fn unit_from_bits(bits: u64) -> f64 {
+    (bits >> 11) as f64 * (1.0 / (1u64 << 53) as f64)
+}
+
+/// Plain SplitMix64 stream (Steele, Lea, Flood 2014): each output is one
+/// [`splitmix64`] step. Used for seeded random Moebius maps and test data
+/// (`crate::moebius::SeededRng` is this type); its stream differs from
+/// [`Rng`] and is kept as it is so that seeded results stay unchanged.
+#[derive(Debug, Clone)]
+pub struct SplitMix64 {
+    state: u64,
+}
+
+impl SplitMix64 {
+    /// A generator started from `seed`.
+    pub fn new(seed: u64) -> Self {
+        SplitMix64 { state: seed }
+    }
+
+    /// The next 64 random bits.
+    #[inline]
+    pub fn next_u64(&mut self) -> u64 {
+        splitmix64(&mut self.state)
+    }
+
+    /// Uniform in `[0, 1)` with 53 random bits.
+    #[inline]
+    pub fn uniform(&mut self) -> f64 {
+        unit_from_bits(self.next_u64())
+    }
+
+    /// Standard normal (Box-Muller, cosine branch only; no spare kept).
+    pub fn normal(&mut self) -> f64 {
+        let u1 = 1.0 - self.uniform(); // in (0, 1]
+        let u2 = self.uniform();
+        (-2.0 * u1.ln()).sqrt() * (std::f64::consts::TAU * u2).cos()
+    }
+
+    /// Uniformly distributed unit vector (normalised Gaussian vector).
+    pub fn unit_vector(&mut self) -> Vec3 {
+        loop {
+            let v = [self.normal(), self.normal(), self.normal()];
+            let n = norm(v);
+            if n > 1e-6 {
+                return scale(v, 1.0 / n);
+            }
+        }
+    }
 }
 
 /// xoshiro256** generator with a Box-Muller spare.
@@ -82,7 +134,7 @@ impl Rng {
     /// Uniform in `[0, 1)` with 53 random bits.
     #[inline]
     pub fn uniform(&mut self) -> f64 {
-        (self.next_u64() >> 11) as f64 * (1.0 / (1u64 << 53) as f64)
+        unit_from_bits(self.next_u64())
     }
 
     /// Uniform in `[lo, hi)`.
@@ -197,6 +249,19 @@ mod tests {
         assert_eq!(splitmix64(&mut s), 0xE220_A839_7B1D_CDAF);
         assert_eq!(splitmix64(&mut s), 0x6E78_9E6A_A1B9_65F4);
         assert_eq!(splitmix64(&mut s), 0x06C4_5D18_8009_454F);
+    }
+
+    #[test]
+    fn splitmix_stream_matches_step_function() {
+        // SplitMix64 outputs are the reference values above (Vigna's C code
+        // for Steele, Lea, Flood 2014, from memory).
+        let mut r = SplitMix64::new(0);
+        assert_eq!(r.next_u64(), 0xE220_A839_7B1D_CDAF);
+        assert_eq!(r.next_u64(), 0x6E78_9E6A_A1B9_65F4);
+        for _ in 0..100 {
+            let v = r.unit_vector();
+            assert!((norm(v) - 1.0).abs() < 1e-12);
+        }
     }
 
     #[test]
