@@ -19,6 +19,7 @@ pub mod mesh;
 pub mod moebius;
 pub mod repair;
 pub mod resample;
+pub mod stats;
 pub mod synth;
 
 pub use error::{Error, Result};
