@@ -16,6 +16,7 @@ mod repair;
 mod resample;
 mod run;
 mod sphere;
+mod stats;
 
 /// Cortical surfaces of a cohort to one common sphere. Research use only:
 /// not a medical device; results need review by a trained analyst.
@@ -51,6 +52,8 @@ enum Command {
     Sphere(sphere::SphereArgs),
     /// Stack resampled maps of a cohort into one GIFTI (and CSV) matrix.
     Matrix(matrix::MatrixArgs),
+    /// Vertex-wise linear model on a cohort matrix: effect, se, t, p, BH q and Cohen's d maps.
+    Stats(stats::StatsArgs),
 }
 
 /// Run the command line and return the exit status.
@@ -68,6 +71,7 @@ pub fn main() -> ExitCode {
         Command::Resample(args) => resample::run(args),
         Command::Sphere(args) => sphere::run(args),
         Command::Matrix(args) => matrix::run(args),
+        Command::Stats(args) => stats::run(args),
     };
     match result {
         Ok(code) => code,
