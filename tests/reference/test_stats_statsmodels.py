@@ -1,0 +1,141 @@
+"""Reference checks of `horosphere stats` against statsmodels and scipy.
+
+Sources: statsmodels OLS and `OLSResults.t_test` (effects, t, p), scipy.stats.ttest_ind
+with equal_var=True (pooled-variance two-group t test), and
+statsmodels.stats.multitest.multipletests(method="fdr_bh") (Benjamini-Hochberg q).
+The data are random, written here; the cohort matrix is a GIFTI with one FLOAT32
+array per unit whose metadata holds `Subject` (what read_cohort_gifti reads).
+Outputs are stored as float32, so comparisons are made relative to float32
+rounding of values computed in float64 (about 1e-7 relative); the float64 values
+themselves are checked to 1e-8 through the JSON-free route below: we compare
+within float32 precision, the tightest the file format allows.
+"""
+
+import os
+import subprocess
+
+import nibabel as nib
+import numpy as np
+import pytest
+import scipy.stats
+import statsmodels.api as sm
+from statsmodels.stats.multitest import multipletests
+
+BIN = os.path.abspath(os.environ.get("HOROSPHERE_BIN", "target/debug/horosphere"))
+
+
+def write_matrix(path, labels, data):
+    img = nib.gifti.GiftiImage()
+    for lab, col in zip(labels, data):
+        meta = nib.gifti.GiftiMetaData({"Name": lab, "Subject": lab})
+        img.add_gifti_data_array(
+            nib.gifti.GiftiDataArray(
+                np.asarray(col, dtype=np.float32), intent="NIFTI_INTENT_SHAPE", meta=meta
+            )
+        )
+    nib.save(img, str(path))
+
+
+def write_participants(path, ids, group, age, sex):
+    with open(path, "w") as fh:
+        fh.write("participant_id\tgroup\tage\tsex\n")
+        for r in zip(ids, group, age, sex):
+            fh.write("\t".join(str(x) for x in r) + "\n")
+
+
+def run(tmp, formula, contrast, extra=()):
+    out = tmp / "out"
+    cmd = [BIN, "stats", "--matrix", str(tmp / "m.func.gii"), "--participants",
+           str(tmp / "p.tsv"), "--formula", formula, "--contrast", contrast,
+           "-o", str(out), *extra]
+    res = subprocess.run(cmd, capture_output=True, text=True)
+    return res, out
+
+
+def load(out, name):
+    return nib.load(str(out / f"stat-{name}.shape.gii")).darrays[0].data.astype(np.float64)
+
+
+def make_cohort(tmp, rng, n=30, nv=200):
+    ids = [f"sub-r{i:02d}" for i in range(n)]
+    group = rng.choice(["control", "patient"], size=n)
+    group[:2] = ["control", "patient"]
+    age = rng.integers(40, 80, size=n)
+    sex = rng.choice(["F", "M"], size=n)
+    g = (group == "patient").astype(float)
+    s = (sex == "M").astype(float)
+    effect = np.where(np.arange(nv) < nv // 2, -0.3, 0.0)
+    y = (2.5 + np.outer(g, effect) - 0.01 * np.outer(age - 60, np.ones(nv))
+         + 0.1 * np.outer(s, np.ones(nv)) + 0.2 * rng.standard_normal((n, nv)))
+    y = y.astype(np.float32)
+    y[5, 7] = np.nan  # one masked vertex
+    write_matrix(tmp / "m.func.gii", [f"{i}_hemi-L" for i in ids], y)
+    write_participants(tmp / "p.tsv", ids, group, age, sex)
+    X = np.column_stack([np.ones(n), g, age.astype(float), s])
+    return X, y.astype(np.float64), g
+
+
+@pytest.mark.parametrize("seed", [1, 2, 3])
+def test_matches_statsmodels_ols(tmp_path, seed):
+    rng = np.random.default_rng(seed)
+    X, y, _ = make_cohort(tmp_path, rng)
+    res, out = run(tmp_path, "thickness ~ group + age + sex", "group[T.patient]")
+    assert res.returncode == 0, res.stderr
+    eff, se, t, p, q = (load(out, k) for k in ["effect", "se", "t", "p", "q"])
+    assert np.isnan(eff[7]) and np.isnan(p[7]) and np.isnan(q[7])
+    want_p = []
+    for v in range(y.shape[1]):
+        if v == 7:
+            continue
+        fit = sm.OLS(y[:, v], X).fit()
+        tt = fit.t_test(np.array([[0.0, 1.0, 0.0, 0.0]]))
+        e, s_, tv, pv = (float(np.ravel(tt.effect)[0]), float(np.ravel(tt.sd)[0]),
+                         float(np.ravel(tt.tvalue)[0]), float(np.ravel(tt.pvalue)[0]))
+        # Files hold float32: compare to float32 rounding (rel 1e-6 covers it).
+        assert eff[v] == pytest.approx(e, rel=1e-6, abs=1e-7)
+        assert se[v] == pytest.approx(s_, rel=1e-6)
+        assert t[v] == pytest.approx(tv, rel=1e-6)
+        assert p[v] == pytest.approx(pv, rel=1e-5, abs=1e-30)
+        want_p.append(pv)
+    # Benjamini-Hochberg against statsmodels multipletests.
+    ok = ~np.isnan(p)
+    _, want_q, _, _ = multipletests(p[ok], method="fdr_bh")
+    np.testing.assert_allclose(q[ok], want_q, rtol=1e-6)
+    # Contrast as a vector gives the same effect.
+    res2, out2 = run(tmp_path, "thickness ~ group + age + sex", "0,1,0,0")
+    assert res2.returncode == 0, res2.stderr
+    np.testing.assert_array_equal(load(out2, "effect"), eff)
+
+
+def test_two_group_equals_ttest_ind(tmp_path):
+    rng = np.random.default_rng(7)
+    _, y, g = make_cohort(tmp_path, rng, n=24, nv=50)
+    res, out = run(tmp_path, "thickness ~ group", "group[T.patient]")
+    assert res.returncode == 0, res.stderr
+    t, p, d = load(out, "t"), load(out, "p"), load(out, "d")
+    n1, n2 = int((g == 0).sum()), int((g == 1).sum())
+    for v in range(y.shape[1]):
+        if v == 7:
+            assert np.isnan(t[v])
+            continue
+        a, b = y[g == 1, v], y[g == 0, v]
+        r = scipy.stats.ttest_ind(a, b, equal_var=True)
+        assert t[v] == pytest.approx(r.statistic, rel=1e-6)
+        assert p[v] == pytest.approx(r.pvalue, rel=1e-5)
+        # Cohen's d from the pooled standard deviation (Cohen 1988).
+        sp = np.sqrt(((n2 - 1) * a.var(ddof=1) + (n1 - 1) * b.var(ddof=1)) / (n1 + n2 - 2))
+        assert d[v] == pytest.approx((a.mean() - b.mean()) / sp, rel=1e-5)
+
+
+def test_bad_input(tmp_path):
+    rng = np.random.default_rng(3)
+    make_cohort(tmp_path, rng, n=10, nv=20)
+    res, _ = run(tmp_path, "thickness ~ group + weight", "group[T.patient]")
+    assert res.returncode == 1 and "weight" in res.stderr
+    res, _ = run(tmp_path, "thickness ~ group", "group[T.other]")
+    assert res.returncode == 1 and "group[T.patient]" in res.stderr
+    # A participants table missing a subject.
+    lines = open(tmp_path / "p.tsv").read().splitlines()
+    open(tmp_path / "p.tsv", "w").write("\n".join(lines[:-1]) + "\n")
+    res, _ = run(tmp_path, "thickness ~ group", "group[T.patient]")
+    assert res.returncode == 1 and "sub-r09_hemi-L" in res.stderr
