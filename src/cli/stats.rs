@@ -7,6 +7,8 @@
 //! `stat-q` and (two-level group contrasts) `stat-d`; with `--labels`, a
 //! per-region CSV `<hemi-H_>stat-regions.csv` (label key, name, vertices,
 //! tested vertices, mean effect, vertices with q below the threshold); and
+//! a full-precision per-vertex CSV `<hemi-H_>stat-vertices.csv`
+//! (vertex,effect,se,t,p,q[,d]; empty = NaN); and
 //! a JSON summary `<hemi-H_>stat-summary.json` (also printed with --json).
 
 use clap::Args;
@@ -126,6 +128,41 @@ pub fn run(args: &StatsArgs) -> Result<ExitCode> {
         );
         let p = args.output.join(format!("{prefix}stat-{name}.shape.gii"));
         gifti::write_shape(&p, &f32s(v), &meta)?;
+        written.push(p.display().to_string());
+    }
+    // Full-precision per-vertex table (shortest round-trip f64; empty = NaN).
+    {
+        let cell = |x: f64| {
+            if x.is_finite() {
+                format!("{x}")
+            } else {
+                String::new()
+            }
+        };
+        let mut t = String::from("vertex,effect,se,t,p,q");
+        if r.d.is_some() {
+            t.push_str(",d");
+        }
+        t.push('\n');
+        for v in 0..nv {
+            t.push_str(&format!(
+                "{v},{},{},{},{},{}",
+                cell(r.effect[v]),
+                cell(r.se[v]),
+                cell(r.t[v]),
+                cell(r.p[v]),
+                cell(q[v])
+            ));
+            if let Some(dv) = &r.d {
+                t.push(',');
+                t.push_str(&cell(dv[v]));
+            }
+            t.push('\n');
+        }
+        let p = args.output.join(format!("{prefix}stat-vertices.csv"));
+        write_atomic(&p, |w| {
+            w.write_all(t.as_bytes()).map_err(|e| Error::io(&p, e))
+        })?;
         written.push(p.display().to_string());
     }
     let n_sig = q.iter().filter(|&&x| x < args.q).count();

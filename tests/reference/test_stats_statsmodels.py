@@ -7,8 +7,8 @@ The data are random, written here; the cohort matrix is a GIFTI with one FLOAT32
 array per unit whose metadata holds `Subject` (what read_cohort_gifti reads).
 Outputs are stored as float32, so comparisons are made relative to float32
 rounding of values computed in float64 (about 1e-7 relative); the float64 values
-themselves are checked to 1e-8 through the JSON-free route below: we compare
-within float32 precision, the tightest the file format allows.
+themselves are checked to 1e-8 through the full-precision per-vertex CSV
+(`stat-vertices.csv`).
 """
 
 import os
@@ -52,11 +52,19 @@ def run(tmp, formula, contrast, extra=()):
     return res, out
 
 
+def load_csv(out):
+    import csv
+    with open(out / "stat-vertices.csv") as fh:
+        rows = list(csv.DictReader(fh))
+    return {k: np.array([float(r[k]) if r[k] else np.nan for r in rows])
+            for k in rows[0].keys()}
+
+
 def load(out, name):
     return nib.load(str(out / f"stat-{name}.shape.gii")).darrays[0].data.astype(np.float64)
 
 
-def make_cohort(tmp, rng, n=30, nv=200):
+def make_cohort(tmp, rng, n=30, nv=120):
     ids = [f"sub-r{i:02d}" for i in range(n)]
     group = rng.choice(["control", "patient"], size=n)
     group[:2] = ["control", "patient"]
@@ -82,6 +90,7 @@ def test_matches_statsmodels_ols(tmp_path, seed):
     res, out = run(tmp_path, "thickness ~ group + age + sex", "group[T.patient]")
     assert res.returncode == 0, res.stderr
     eff, se, t, p, q = (load(out, k) for k in ["effect", "se", "t", "p", "q"])
+    full = load_csv(out)
     assert np.isnan(eff[7]) and np.isnan(p[7]) and np.isnan(q[7])
     want_p = []
     for v in range(y.shape[1]):
@@ -96,11 +105,19 @@ def test_matches_statsmodels_ols(tmp_path, seed):
         assert se[v] == pytest.approx(s_, rel=1e-6)
         assert t[v] == pytest.approx(tv, rel=1e-6)
         assert p[v] == pytest.approx(pv, rel=1e-5, abs=1e-30)
+        # The full-precision table matches to 1e-8 (relative; p absolute 1e-12 floor).
+        assert full["effect"][v] == pytest.approx(e, rel=1e-8, abs=1e-12)
+        assert full["se"][v] == pytest.approx(s_, rel=1e-8)
+        assert full["t"][v] == pytest.approx(tv, rel=1e-8)
+        assert full["p"][v] == pytest.approx(pv, rel=1e-8, abs=1e-300)
         want_p.append(pv)
     # Benjamini-Hochberg against statsmodels multipletests.
     ok = ~np.isnan(p)
     _, want_q, _, _ = multipletests(p[ok], method="fdr_bh")
     np.testing.assert_allclose(q[ok], want_q, rtol=1e-6)
+    okf = ~np.isnan(full["p"])
+    _, want_qf, _, _ = multipletests(full["p"][okf], method="fdr_bh")
+    np.testing.assert_allclose(full["q"][okf], want_qf, rtol=1e-12)
     # Contrast as a vector gives the same effect.
     res2, out2 = run(tmp_path, "thickness ~ group + age + sex", "0,1,0,0")
     assert res2.returncode == 0, res2.stderr
@@ -125,6 +142,11 @@ def test_two_group_equals_ttest_ind(tmp_path):
         # Cohen's d from the pooled standard deviation (Cohen 1988).
         sp = np.sqrt(((n2 - 1) * a.var(ddof=1) + (n1 - 1) * b.var(ddof=1)) / (n1 + n2 - 2))
         assert d[v] == pytest.approx((a.mean() - b.mean()) / sp, rel=1e-5)
+    full = load_csv(out)
+    ok = ~np.isnan(full["t"])
+    r = scipy.stats.ttest_ind(y[g == 1][:, ok], y[g == 0][:, ok], equal_var=True)
+    np.testing.assert_allclose(full["t"][ok], r.statistic, rtol=1e-8)
+    np.testing.assert_allclose(full["p"][ok], r.pvalue, rtol=1e-8)
 
 
 def test_bad_input(tmp_path):
