@@ -112,7 +112,7 @@ fn beta_cf(a: f64, b: f64, x: f64) -> f64 {
 /// Regularized incomplete beta I_x(a, b) for a, b > 0 and 0 <= x <= 1
 /// (NaN outside).
 pub fn inc_beta(a: f64, b: f64, x: f64) -> f64 {
-    if !(a > 0.0 && b > 0.0) || !(0.0..=1.0).contains(&x) {
+    if a.is_nan() || b.is_nan() || a <= 0.0 || b <= 0.0 || !(0.0..=1.0).contains(&x) {
         return f64::NAN;
     }
     if x == 0.0 || x == 1.0 {
@@ -129,7 +129,7 @@ pub fn inc_beta(a: f64, b: f64, x: f64) -> f64 {
 
 /// Two-sided p-value P(|T| >= |t|) of Student's t with `df` degrees of freedom.
 pub fn t_two_sided(t: f64, df: f64) -> f64 {
-    if t.is_nan() || !(df > 0.0) {
+    if t.is_nan() || df.is_nan() || df <= 0.0 {
         return f64::NAN;
     }
     if t.is_infinite() {
