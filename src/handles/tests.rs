@@ -1,0 +1,176 @@
+//! Tests of handle search and cutting against closed-form loop lengths
+//! (circle perimeters) and the Euler characteristic V - E + F = 2 - 2g
+//! (Massey, "A basic course in algebraic topology", 1991).
+
+use super::*;
+use crate::mesh::shapes::{double_torus, torus};
+use crate::mesh::topology::face_components;
+use std::f64::consts::{PI, TAU};
+
+fn euler(m: &TriMesh) -> i64 {
+    let he = Halfedges::from_faces(m.n_vertices(), &m.faces).unwrap();
+    he.euler_characteristic()
+}
+
+/// Closed polygon profile (rho, z), counter-clockwise in the (rho, z) plane
+/// like [`torus`], revolved about z with `n` segments.
+fn revolve(profile: &[(f64, f64)], n: usize) -> TriMesh {
+    let m = profile.len();
+    let mut positions = Vec::new();
+    for i in 0..n {
+        let u = TAU * i as f64 / n as f64;
+        for &(r, z) in profile {
+            positions.push([r * u.cos(), r * u.sin(), z]);
+        }
+    }
+    let id = |i: usize, j: usize| ((i % n) * m + (j % m)) as u32;
+    let mut faces = Vec::new();
+    for i in 0..n {
+        for j in 0..m {
+            let (a, b, c, d) = (id(i, j), id(i + 1, j), id(i + 1, j + 1), id(i, j + 1));
+            faces.push([a, b, c]);
+            faces.push([a, c, d]);
+        }
+    }
+    TriMesh { positions, faces }
+}
+
+/// Sphere of radius `big` with a straight tube of radius `r` through it
+/// along z: its holes at the poles (where the sphere radius in the xy-plane
+/// is `r`) are joined by the tube. Returns the mesh and the tube's area.
+fn sphere_with_tube(big: f64, r: f64, n: usize) -> (TriMesh, f64) {
+    let phi1 = (r / big).acos();
+    let zt = big * phi1.sin();
+    let na = 40;
+    let mut prof = Vec::new();
+    for k in 0..=na {
+        let phi = -phi1 + 2.0 * phi1 * k as f64 / na as f64;
+        prof.push((big * phi.cos(), big * phi.sin()));
+    }
+    let nt = 12;
+    for k in 1..nt {
+        prof.push((r, zt - 2.0 * zt * k as f64 / nt as f64));
+    }
+    // Polygonal tube area: perimeter of the n-gon times the tube length.
+    let tube_area = 2.0 * n as f64 * r * (PI / n as f64).sin() * 2.0 * zt;
+    (revolve(&prof, n), tube_area)
+}
+
+fn assert_genus0_closed_connected(m: &TriMesh) {
+    // Closed oriented manifold: the halfedge build refuses anything else.
+    assert_eq!(euler(m), 2, "V - E + F = 2 - 2g with g = 0, b = 0");
+    assert_eq!(face_components(m).1, 1);
+}
+
+#[test]
+fn torus_has_one_loop_of_tube_circumference() {
+    let (big, r, nm) = (10.0, 2.0, 24);
+    let m = torus(big, r, 64, nm);
+    assert_eq!(euler(&m), 0);
+    let hs = find_handles(&m).unwrap();
+    assert_eq!(hs.len(), 1);
+    // Tube circumference 2 pi r (analytic); the polygon is 0.3% shorter.
+    let want = TAU * r;
+    assert!(
+        (hs[0].length_mm - want).abs() < 0.02 * want,
+        "{}",
+        hs[0].length_mm
+    );
+    assert_eq!(hs[0].vertices.len(), nm);
+    // Its centre lies on the tube's centre circle (radius `big`, z = 0).
+    let c = hs[0].centre;
+    assert!(
+        ((c[0].hypot(c[1])) - big).abs() < 0.5 && c[2].abs() < 0.5,
+        "{c:?}"
+    );
+    assert!(!hs[0].neighbours.is_empty());
+    let cut = cut_handles(&m, 30.0).unwrap();
+    assert_eq!(cut.genus, 0);
+    assert!(cut.handles[0].cut);
+    assert_genus0_closed_connected(&cut.mesh);
+    assert_eq!(cut.origin.len(), cut.mesh.n_vertices());
+}
+
+#[test]
+fn double_torus_has_two_loops_and_cuts_to_genus0() {
+    let m = double_torus(10.0, 2.0, 32, 12);
+    assert_eq!(euler(&m), -2);
+    let cut = cut_handles(&m, f64::INFINITY).unwrap();
+    assert_eq!(cut.handles.len(), 2);
+    assert_eq!(cut.genus, 0);
+    assert_genus0_closed_connected(&cut.mesh);
+    for h in &cut.handles {
+        // Each is a tube circumference of one torus (2 pi r, 12-gon).
+        let want = TAU * 2.0;
+        assert!((h.length_mm - want).abs() < 0.03 * want, "{}", h.length_mm);
+    }
+}
+
+#[test]
+fn sphere_with_thin_tube_keeps_the_sphere() {
+    let (big, r) = (20.0, 1.5);
+    let (m, tube_area) = sphere_with_tube(big, r, 24);
+    assert_eq!(euler(&m), 0);
+    let cut = cut_handles(&m, 30.0).unwrap();
+    assert_eq!(cut.handles.len(), 1);
+    let h = &cut.handles[0];
+    let want = TAU * r;
+    assert!((h.length_mm - want).abs() < 0.02 * want, "{}", h.length_mm);
+    // The loop lies on the tube (every vertex at distance r from the axis).
+    for &v in &h.vertices {
+        let p = m.positions[v as usize];
+        assert!((p[0].hypot(p[1]) - r).abs() < 1e-9);
+    }
+    assert_genus0_closed_connected(&cut.mesh);
+    // The sphere is kept: area changes only by the two caps (2 pi r^2 at
+    // most) - the tube is still there, cut across and capped - so the area
+    // grows by about the two discs; the sphere's outer vertices are intact.
+    let grow = cut.mesh.area() - m.area();
+    assert!(
+        grow > 0.0 && grow < 2.0 * PI * r * r * 1.01,
+        "{grow} vs tube {tube_area}"
+    );
+    // Every outer-sphere vertex survives (duplicates of the rim map back).
+    let mut far: Vec<u32> = cut
+        .mesh
+        .positions
+        .iter()
+        .zip(&cut.origin)
+        .filter(|(p, _)| crate::mesh::norm(**p) > big * 0.99)
+        .filter_map(|(_, o)| *o)
+        .collect();
+    far.sort_unstable();
+    far.dedup();
+    let far0 = m
+        .positions
+        .iter()
+        .filter(|p| crate::mesh::norm(**p) > big * 0.99)
+        .count();
+    assert_eq!(far.len(), far0);
+}
+
+#[test]
+fn limit_leaves_long_handles_alone() {
+    let m = torus(10.0, 2.0, 64, 24);
+    let cut = cut_handles(&m, 5.0).unwrap();
+    assert_eq!(cut.genus, 1);
+    assert_eq!(cut.handles.len(), 1);
+    assert!(!cut.handles[0].cut);
+    assert_eq!(cut.mesh.faces, m.faces);
+}
+
+#[test]
+fn sphere_has_no_handles() {
+    let m = crate::mesh::shapes::icosphere(2, 10.0);
+    assert!(find_handles(&m).unwrap().is_empty());
+}
+
+#[test]
+fn non_manifold_input_asks_for_repair() {
+    let mut m = torus(10.0, 2.0, 16, 8);
+    let f = m.faces[0];
+    m.faces.push(f);
+    let e = find_handles(&m).unwrap_err();
+    assert!(matches!(e, Error::NotReady(_)));
+    assert!(e.to_string().contains("repair first"), "{e}");
+}
