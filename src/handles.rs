@@ -103,7 +103,7 @@ impl Ord for Item {
 
 fn alg(message: String) -> Error {
     Error::Algorithm {
-        stage: "handles".into(),
+        stage: "handles",
         message,
     }
 }
@@ -292,9 +292,7 @@ fn search(mesh: &TriMesh, he: &Halfedges) -> Option<(f64, Vec<u32>)> {
                 }
             }
         }
-        let Some((_, c)) = best.as_ref() else {
-            return None;
-        };
+        let (_, c) = best.as_ref()?;
         if !improved && !tried.is_empty() && tried.len() > ROOT_SAMPLE {
             break;
         }

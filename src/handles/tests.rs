@@ -174,3 +174,59 @@ fn non_manifold_input_asks_for_repair() {
     assert!(matches!(e, Error::NotReady(_)));
     assert!(e.to_string().contains("repair first"), "{e}");
 }
+
+#[test]
+fn planted_synthetic_handle_is_found_at_its_place() {
+    use crate::synth::defects::{plant, DefectKind};
+    use crate::synth::rng::Rng;
+    use crate::synth::surface::{folded_surface, Hemi, SurfaceParams};
+    let params = SurfaceParams {
+        vertices: 5_000,
+        hemi: Hemi::Right,
+        ..Default::default()
+    };
+    let seed = 7;
+    let s = folded_surface(&params, seed).unwrap();
+    let e = plant(&s, DefectKind::Handle, &mut Rng::new(seed), &[0, 1, 2]).unwrap();
+    assert_eq!(euler(&e.mesh), 0);
+    let cut = cut_handles(&e.mesh, 30.0).unwrap();
+    assert_eq!(cut.handles.len(), 1);
+    let h = &cut.handles[0];
+    // The planted tube is a 3-quad prism whose six triangles are the last
+    // faces of the edited mesh (src/synth/defects.rs): the loop must run on
+    // its six vertices, and its centre lies within half a tube length (the
+    // tube spans at most 8 mm + 2 edge lengths) of the recorded midpoint.
+    let tube: HashSet<u32> = e.mesh.faces[e.mesh.n_faces() - 6..]
+        .iter()
+        .flatten()
+        .copied()
+        .collect();
+    assert_eq!(tube.len(), 6);
+    assert!(
+        h.vertices.iter().all(|v| tube.contains(v)),
+        "{:?} vs {tube:?}",
+        h.vertices
+    );
+    let off = dist(h.centre, e.record.at);
+    assert!(
+        off < 8.0,
+        "handle centre {:?} is {off} mm from {:?}",
+        h.centre,
+        e.record.at
+    );
+    // An end triangle of the tube closes a loop of three tube edges, so the
+    // shortest loop is no longer than three times the longest tube edge.
+    let longest = e.mesh.faces[e.mesh.n_faces() - 6..]
+        .iter()
+        .flat_map(|t| (0..3).map(move |k| (t[k], t[(k + 1) % 3])))
+        .map(|(a, b)| dist(e.mesh.positions[a as usize], e.mesh.positions[b as usize]))
+        .fold(0.0, f64::max);
+    assert!(
+        h.length_mm <= 3.0 * longest + 1e-9,
+        "{} vs {longest}",
+        h.length_mm
+    );
+    assert!(h.vertices.len() <= 6);
+    assert!(h.cut);
+    assert_genus0_closed_connected(&cut.mesh);
+}
