@@ -43,7 +43,7 @@ use crate::error::{Error, Result};
 use crate::mesh::halfedge::{face, Halfedges};
 use crate::mesh::{dist, TriMesh, Vec3};
 use crate::repair::holes::{fan, loop_centroid, triangulate_hole, HoleInput, HoleWeight};
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 use std::cmp::Ordering;
 use std::collections::{BinaryHeap, HashSet};
 
@@ -59,7 +59,7 @@ pub const MAX_GENUS: i64 = 32;
 const MAX_DP_LOOP: usize = 200;
 
 /// One handle: its shortest non-separating loop found.
-#[derive(Debug, Clone, Serialize, PartialEq)]
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 pub struct Handle {
     /// Loop length in mm.
     pub length_mm: f64,

@@ -230,3 +230,30 @@ fn planted_synthetic_handle_is_found_at_its_place() {
     assert!(h.cut);
     assert_genus0_closed_connected(&cut.mesh);
 }
+
+#[test]
+fn repair_cuts_a_torus_and_marks_cap_vertices() {
+    use crate::repair::{repair, RepairOptions};
+    let m = torus(10.0, 2.0, 48, 16);
+    let opts = RepairOptions {
+        max_handle_mm: Some(30.0),
+        ..Default::default()
+    };
+    let r = repair(&m, &opts).unwrap();
+    assert_eq!(r.log.genus, 0);
+    assert_eq!(r.log.euler_characteristic, 2);
+    assert_eq!(r.log.handles.len(), 1);
+    assert!(r.log.handles[0].cut);
+    assert_eq!(r.added.len(), r.mesh.n_vertices());
+    // Duplicated loop vertices copy an input vertex; only cap centres (if
+    // any) are new, and the log lists exactly the marked ones.
+    let marked: Vec<u32> = (0..r.added.len() as u32)
+        .filter(|&v| r.added[v as usize])
+        .collect();
+    assert_eq!(marked, r.log.added_vertices);
+    assert!(r.origin.iter().filter(|o| o.is_some()).count() >= m.n_vertices() + 16);
+    // Without the option the handle stays.
+    let kept = repair(&m, &RepairOptions::default()).unwrap();
+    assert_eq!(kept.log.genus, 1);
+    assert!(kept.log.handles.is_empty());
+}
