@@ -184,6 +184,21 @@ pub fn run(args: &RepairArgs) -> Result<ExitCode> {
         l.holes.len(),
         l.added_vertices.len()
     );
+    for h in &l.handles {
+        println!(
+            "handle: loop {:.1} mm at ({:.1}, {:.1}, {:.1}) mm, {} vertices: {}",
+            h.length_mm,
+            h.centre[0],
+            h.centre[1],
+            h.centre[2],
+            h.vertices.len(),
+            if h.cut {
+                "cut and capped"
+            } else {
+                "longer than --max-handle-mm, left (genus > 0: not ready to map)"
+            }
+        );
+    }
     println!(
         "result: closed, Euler characteristic {}, area {:.1} mm^2, volume {:.1} mm^3; mask {}",
         l.euler_characteristic,
