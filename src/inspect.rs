@@ -229,6 +229,10 @@ pub struct Inspection {
     pub ready_to_map: bool,
     pub reasons: Vec<Reason>,
     pub settings: Settings,
+    /// Handles of a single closed oriented component of positive genus:
+    /// shortest non-separating loops ([`crate::handles::find_handles`]).
+    #[serde(default)]
+    pub handles: Vec<crate::handles::Handle>,
 }
 
 impl Inspection {
@@ -869,7 +873,16 @@ pub fn inspect(mesh: &TriMesh, opts: &InspectOptions) -> Result<Inspection> {
             degenerate_relative_tolerance: opts.degenerate_relative_tolerance,
             max_listed: opts.max_listed,
         },
+        handles: Vec::new(),
     };
+    if ncomp == 1
+        && components
+            .first()
+            .and_then(|c| c.genus)
+            .is_some_and(|g| g > 0)
+    {
+        report.handles = crate::handles::find_handles(mesh).unwrap_or_default();
+    }
     report.reasons = reasons(&report, &components);
     report.ready_to_map = report.reasons.is_empty();
     Ok(report)

@@ -38,6 +38,14 @@ pub struct RepairArgs {
     /// Weight of the hole triangulation.
     #[arg(long, value_enum, default_value_t = WeightArg::AngleThenArea)]
     hole_weight: WeightArg,
+    /// Cut handles (positive genus) along their shortest non-separating
+    /// loops and cap both sides, until genus 0.
+    #[arg(long)]
+    cut_handles: bool,
+    /// Longest handle loop (mm) that `--cut-handles` cuts; longer ones are
+    /// reported and left.
+    #[arg(long, value_name = "MM", default_value_t = 30.0)]
+    max_handle_mm: f64,
 }
 
 /// `--hole-weight` values.
@@ -91,7 +99,14 @@ fn options(args: &RepairArgs) -> Result<RepairOptions> {
             args.max_dp_hole
         )));
     }
+    if !(args.max_handle_mm.is_finite() && args.max_handle_mm > 0.0) {
+        return Err(Error::Invalid(format!(
+            "--max-handle-mm {} is not a positive number of millimetres",
+            args.max_handle_mm
+        )));
+    }
     Ok(RepairOptions {
+        max_handle_mm: args.cut_handles.then_some(args.max_handle_mm),
         merge_tolerance_mm: args.merge_tolerance,
         max_dp_hole_edges: args.max_dp_hole,
         hole_weight: match args.hole_weight {
@@ -169,6 +184,21 @@ pub fn run(args: &RepairArgs) -> Result<ExitCode> {
         l.holes.len(),
         l.added_vertices.len()
     );
+    for h in &l.handles {
+        println!(
+            "handle: loop {:.1} mm at ({:.1}, {:.1}, {:.1}) mm, {} vertices: {}",
+            h.length_mm,
+            h.centre[0],
+            h.centre[1],
+            h.centre[2],
+            h.vertices.len(),
+            if h.cut {
+                "cut and capped"
+            } else {
+                "longer than --max-handle-mm, left (genus > 0: not ready to map)"
+            }
+        );
+    }
     println!(
         "result: closed, Euler characteristic {}, area {:.1} mm^2, volume {:.1} mm^3; mask {}",
         l.euler_characteristic,

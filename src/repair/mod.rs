@@ -71,6 +71,10 @@ pub struct RepairOptions {
     pub max_dp_hole_edges: usize,
     /// Weight of the dynamic programme.
     pub hole_weight: HoleWeight,
+    /// Cut handles whose shortest non-separating loop is at most this long
+    /// (mm), see [`crate::handles`]; `None` keeps every handle.
+    #[serde(default)]
+    pub max_handle_mm: Option<f64>,
 }
 
 impl Default for RepairOptions {
@@ -79,6 +83,7 @@ impl Default for RepairOptions {
             merge_tolerance_mm: 0.0,
             max_dp_hole_edges: 60,
             hole_weight: HoleWeight::AngleThenArea,
+            max_handle_mm: None,
         }
     }
 }
@@ -180,6 +185,9 @@ pub struct RepairLog {
     pub output_faces: usize,
     pub euler_characteristic: i64,
     pub genus: i64,
+    /// Handles found by `--cut-handles` (cut, or left when over the limit).
+    #[serde(default)]
+    pub handles: Vec<crate::handles::Handle>,
     pub area_mm2: f64,
     pub volume_mm3: f64,
 }
@@ -520,10 +528,49 @@ pub fn repair(mesh: &TriMesh, opts: &RepairOptions) -> Result<Repaired> {
     log.added_vertices = (0..added.len() as u32)
         .filter(|&v| added[v as usize])
         .collect();
-    let out = TriMesh {
+    let mut out = TriMesh {
         positions: out_positions,
         faces: out_faces,
     };
+    if let Some(limit) = opts.max_handle_mm {
+        let ok = Halfedges::from_faces(out.n_vertices(), &out.faces)
+            .map(|he| he.euler_characteristic() < 2)
+            .unwrap_or(false);
+        if ok {
+            let cut = crate::handles::cut_handles(&out, limit)?;
+            let mut handles = cut.handles;
+            // Report handle vertices as input vertices where they have one.
+            for h in &mut handles {
+                h.vertices = h
+                    .vertices
+                    .iter()
+                    .filter_map(|&v| origin.get(v as usize).copied().flatten())
+                    .collect();
+                h.neighbours = h
+                    .neighbours
+                    .iter()
+                    .filter_map(|&v| origin.get(v as usize).copied().flatten())
+                    .collect();
+            }
+            log.handles = handles;
+            let new_added: Vec<bool> = cut
+                .origin
+                .iter()
+                .map(|o| o.is_none_or(|v| added.get(v as usize).copied().unwrap_or(true)))
+                .collect();
+            let new_origin: Vec<Option<u32>> = cut
+                .origin
+                .iter()
+                .map(|o| o.and_then(|v| origin.get(v as usize).copied().flatten()))
+                .collect();
+            added = new_added;
+            origin = new_origin;
+            out = cut.mesh;
+            log.added_vertices = (0..added.len() as u32)
+                .filter(|&v| added[v as usize])
+                .collect();
+        }
+    }
 
     // Verification.
     let fail = |message: String| Error::Algorithm {

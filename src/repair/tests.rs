@@ -586,6 +586,7 @@ fn random_defect_combinations() {
             } else {
                 HoleWeight::AngleThenArea
             },
+            max_handle_mm: None,
         };
         match repair(&m, &opts) {
             Ok(r) => {
