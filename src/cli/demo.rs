@@ -25,6 +25,14 @@ pub struct DemoArgs {
     /// Random seed; the same seed and options give byte-identical files.
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
+    /// Thickness change of the planted group effect, mm (patients, left
+    /// hemisphere). Default: the generator's (-0.3).
+    #[arg(long, allow_hyphen_values = true)]
+    pub effect_mm: Option<f64>,
+    /// Angular radius of the planted effect's cap, degrees. Default: the
+    /// generator's (18).
+    #[arg(long)]
+    pub effect_radius_deg: Option<f64>,
     /// Leave out the planted defects.
     #[arg(long)]
     pub no_defects: bool,
@@ -50,13 +58,19 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
             args.subjects
         )));
     }
-    let params = CohortParams {
+    let mut params = CohortParams {
         subjects: args.subjects,
         vertices: args.vertices,
         seed: args.seed,
         defects: !args.no_defects,
         ..Default::default()
     };
+    if let Some(mm) = args.effect_mm {
+        params.effect.change_mm = mm;
+    }
+    if let Some(deg) = args.effect_radius_deg {
+        params.effect.angular_radius_deg = deg;
+    }
     // The command that regenerates this output, recorded in its README.
     let mut command = format!(
         "horosphere demo --out {} --subjects {} --vertices {} --seed {}",
@@ -65,6 +79,12 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
         args.vertices,
         args.seed
     );
+    if let Some(mm) = args.effect_mm {
+        command.push_str(&format!(" --effect-mm {mm}"));
+    }
+    if let Some(deg) = args.effect_radius_deg {
+        command.push_str(&format!(" --effect-radius-deg {deg}"));
+    }
     if args.no_defects {
         command.push_str(" --no-defects");
     }

@@ -71,7 +71,7 @@ def test_participants_table(truth):
     with open(DEMO / "participants.tsv", newline="") as f:
         rows = list(csv.DictReader(f, delimiter="\t"))
     assert list(rows[0].keys()) == ["participant_id", "group", "age", "sex"]
-    assert len(rows) == len(truth["subjects"]) == 14
+    assert len(rows) == len(truth["subjects"]) == 40
     assert {r["group"] for r in rows} == {"control", "patient"}
     for r, s in zip(rows, truth["subjects"]):
         assert r["participant_id"] == s["participant_id"]
