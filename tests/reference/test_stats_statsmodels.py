@@ -52,9 +52,9 @@ def run(tmp, formula, contrast, extra=()):
     return res, out
 
 
-def load_csv(out):
+def load_csv(out, prefix=""):
     import csv
-    with open(out / "stat-vertices.csv") as fh:
+    with open(out / f"{prefix}stat-vertices.csv") as fh:
         rows = list(csv.DictReader(fh))
     return {k: np.array([float(r[k]) if r[k] else np.nan for r in rows])
             for k in rows[0].keys()}
@@ -161,3 +161,102 @@ def test_bad_input(tmp_path):
     open(tmp_path / "p.tsv", "w").write("\n".join(lines[:-1]) + "\n")
     res, _ = run(tmp_path, "thickness ~ group", "group[T.patient]")
     assert res.returncode == 1 and "sub-r09_hemi-L" in res.stderr
+
+
+def test_region_summary_matches_numpy(tmp_path):
+    """`--labels`: per region, the mean effect over tested vertices equals the
+    mean of statsmodels OLS effects there, and the count of q < 0.05 equals
+    multipletests(fdr_bh) on the statsmodels p-values."""
+    rng = np.random.default_rng(11)
+    X, y, _ = make_cohort(tmp_path, rng, n=30, nv=120)
+    keys = np.repeat(np.array([0, 1, 2, 3], dtype=np.int32), 30)
+    rng.shuffle(keys)
+    table = nib.gifti.GiftiLabelTable()
+    for k, name in enumerate(["unlabelled", "prow", "crest, upper", "keel"]):
+        lab = nib.gifti.GiftiLabel(key=k, red=0.1 * k, green=0.5, blue=0.5, alpha=1.0)
+        lab.label = name
+        table.labels.append(lab)
+    img = nib.gifti.GiftiImage(labeltable=table)
+    img.add_gifti_data_array(nib.gifti.GiftiDataArray(keys, intent="NIFTI_INTENT_LABEL"))
+    nib.save(img, str(tmp_path / "regions.label.gii"))
+    res, out = run(tmp_path, "thickness ~ group + age + sex", "group[T.patient]",
+                   ["--labels", str(tmp_path / "regions.label.gii")])
+    assert res.returncode == 0, res.stderr
+    import csv
+    with open(out / "stat-regions.csv") as fh:
+        rows = list(csv.DictReader(fh))
+    assert [int(r["key"]) for r in rows] == [0, 1, 2, 3]
+    assert rows[2]["region"] == "crest  upper"  # a comma in a name cannot split the row
+    effect = np.full(y.shape[1], np.nan)
+    p = np.full(y.shape[1], np.nan)
+    for v in range(y.shape[1]):
+        ok = np.isfinite(y[:, v])
+        if not ok.all():
+            continue  # a vertex with a missing unit is masked
+        fit = sm.OLS(y[:, v], X).fit()
+        effect[v], p[v] = fit.params[1], fit.pvalues[1]
+    tested = np.isfinite(p)
+    q = np.full_like(p, np.nan)
+    q[tested] = multipletests(p[tested], method="fdr_bh")[1]
+    for r in rows:
+        k = int(r["key"])
+        sel = keys == k
+        assert int(r["vertices"]) == sel.sum()
+        assert int(r["tested"]) == (sel & tested).sum()
+        np.testing.assert_allclose(float(r["mean_effect"]), effect[sel & tested].mean(), rtol=1e-6)
+        assert int(r["significant"]) == int((q[sel & tested] < 0.05).sum())
+    # The planted half (vertices < 60, effect -0.3) is where the findings are.
+    assert sum(int(r["significant"]) for r in rows) > 20
+
+
+def test_both_hemispheres_need_a_choice(tmp_path):
+    """Two units of one participant would be counted as independent subjects:
+    refused unless --hemi picks one."""
+    rng = np.random.default_rng(5)
+    n, nv = 12, 30
+    ids = [f"sub-h{i:02d}" for i in range(n)]
+    group = np.array(["control", "patient"] * (n // 2))
+    write_participants(tmp_path / "p.tsv", ids, group, rng.integers(40, 80, n), ["F"] * n)
+    labels = [f"{i}_hemi-{h}" for i in ids for h in ("L", "R")]
+    write_matrix(tmp_path / "m.func.gii", labels, rng.standard_normal((2 * n, nv)))
+    res, out = run(tmp_path, "thickness ~ group", "group[T.patient]")
+    assert res.returncode == 1
+    assert "more than one unit" in res.stderr and "--hemi" in res.stderr
+    assert not out.exists()
+    res, out = run(tmp_path, "thickness ~ group", "group[T.patient]", ["--hemi", "R"])
+    assert res.returncode == 0, res.stderr
+    assert (out / "hemi-R_stat-t.shape.gii").exists()
+    t = load_csv(out, "hemi-R_")["t"]
+    # The R columns only: scipy's pooled t test on them.
+    data = nib.load(str(tmp_path / "m.func.gii"))
+    r_cols = np.array([d.data for d, lab in zip(data.darrays, labels) if lab.endswith("_hemi-R")], float)
+    ref = scipy.stats.ttest_ind(r_cols[group == "patient"], r_cols[group == "control"], equal_var=True)
+    np.testing.assert_allclose(t, ref.statistic, rtol=1e-6, atol=1e-6)
+
+
+def test_singular_design_and_constant_vertex(tmp_path):
+    rng = np.random.default_rng(9)
+    n, nv = 16, 10
+    ids = [f"sub-s{i:02d}" for i in range(n)]
+    group = np.array(["control", "patient"] * (n // 2))
+    age = rng.integers(40, 80, n)
+    with open(tmp_path / "p.tsv", "w") as fh:
+        fh.write("participant_id\tgroup\tage\tage_months\n")
+        for i in range(n):
+            fh.write(f"{ids[i]}\t{group[i]}\t{age[i]}\t{12 * age[i]}\n")
+    y = rng.standard_normal((n, nv)).astype(np.float32)
+    y[:, 4] = 2.5  # constant data at one vertex
+    write_matrix(tmp_path / "m.func.gii", [f"{i}_hemi-L" for i in ids], y)
+    # age_months = 12 * age: the design is singular.
+    res, out = run(tmp_path, "thickness ~ group + age + age_months", "group[T.patient]")
+    assert res.returncode == 1
+    assert "singular" in res.stderr.lower() or "collinear" in res.stderr.lower(), res.stderr
+    assert not out.exists()
+    # A constant vertex is reported, not fatal; its statistics are missing.
+    res, out = run(tmp_path, "thickness ~ group + age", "group[T.patient]", ["--json"])
+    assert res.returncode == 0, res.stderr
+    import json
+    summary = json.loads(res.stdout)
+    assert summary["zero_variance_vertices"] == 1
+    t = load_csv(out)["t"]
+    assert np.isnan(t[4]) and np.isfinite(np.delete(t, 4)).all()
