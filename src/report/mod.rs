@@ -374,7 +374,7 @@ fn stats_pictures(dir: &Path, opts: &ReportOptions) -> Result<Vec<StatsPicture>>
                 .collect()
             })
             .unwrap_or_default();
-        for stat in ["t", "effect"] {
+        for (j, stat) in ["t", "effect"].into_iter().enumerate() {
             let p = dir.join(format!("{prefix}stat-{stat}.shape.gii"));
             if !p.is_file() {
                 continue;
@@ -410,7 +410,7 @@ fn stats_pictures(dir: &Path, opts: &ReportOptions) -> Result<Vec<StatsPicture>>
                 strip: data_uri(&img)?,
                 panels: views.iter().map(|v| v.name.to_string()).collect(),
                 range: r,
-                summary: summary.clone(),
+                summary: if j == 0 { summary.clone() } else { Vec::new() },
             });
         }
     }
