@@ -53,7 +53,7 @@ pub fn histogram_image(values: &[f64], lo: f64, hi: f64, bins: usize, st: &Histo
     for (k, &n) in counts.iter().enumerate() {
         let x0 = 1 + k * (w - 2) / bins;
         let x1 = (1 + (k + 1) * (w - 2) / bins).max(x0 + 1);
-        let bh = ((n as f64 / max) * (plot_h - 1) as f64).round() as usize;
+        let bh = ((n as f64 / max) * plot_h as f64).round() as usize;
         let bh = if n > 0 { bh.max(1) } else { 0 };
         img.fill_rect(x0, h - 1 - bh, x1, h - 1, st.bar);
     }
