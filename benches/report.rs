@@ -63,7 +63,11 @@ fn main() {
         ])
         .output()
         .unwrap();
-    assert!(ok.status.success(), "{}", String::from_utf8_lossy(&ok.stderr));
+    assert!(
+        ok.status.success(),
+        "{}",
+        String::from_utf8_lossy(&ok.stderr)
+    );
     let pipelines = Path::new(env!("CARGO_MANIFEST_DIR")).join("pipelines");
     let manifest = dir.join("cohort.toml");
     std::fs::write(
@@ -83,7 +87,11 @@ fn main() {
         .args(["--jobs", "2", "--allow-failed"])
         .output()
         .unwrap();
-    assert!(run.status.success(), "{}", String::from_utf8_lossy(&run.stderr));
+    assert!(
+        run.status.success(),
+        "{}",
+        String::from_utf8_lossy(&run.stderr)
+    );
     let pipeline_s = t0.elapsed().as_secs_f64();
     // Replicate subjects under new labels.
     let qc_path = out.join("group/desc-cohort_qc.csv");

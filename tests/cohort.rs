@@ -498,7 +498,10 @@ fn the_run_writes_a_report_with_one_row_per_unit() {
         .collect();
     assert_eq!(units, want);
     let failed = rows.iter().filter(|r| r["status"] == "failed").count();
-    assert_eq!(html.matches("<span class=\"chip failed\">").count(), 3 * failed);
+    assert_eq!(
+        html.matches("<span class=\"chip failed\">").count(),
+        3 * failed
+    );
     assert!(html.contains("not a medical device"));
     assert!(html.contains("trained analyst"));
     assert!(html.contains("data-protection"));
@@ -507,7 +510,10 @@ fn the_run_writes_a_report_with_one_row_per_unit() {
     assert_eq!(strips, rows.len() - failed);
     assert!(html.matches("<img ").count() >= 4 * (rows.len() - failed) + 2);
     assert!(!html.contains(&*out.to_string_lossy()), "no absolute paths");
-    assert!(!html.contains(&*study().to_string_lossy()), "no absolute paths");
+    assert!(
+        !html.contains(&*study().to_string_lossy()),
+        "no absolute paths"
+    );
     // Sidecar with the report's hash.
     let side: serde_json::Value =
         serde_json::from_slice(&std::fs::read(out.join("group/desc-cohort_report.json")).unwrap())

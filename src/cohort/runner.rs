@@ -1,5 +1,5 @@
 //! Running a cohort: every unit (subject and hemisphere) through the chain
-//! in parallel, then the cohort step.
+//! in parallel, then the cohort step and the QC report ([`crate::report`]).
 //!
 //! In: a [`Manifest`] and [`RunOptions`]. Out: the files of
 //! [`super::unit`] and [`super::group`] and a [`RunSummary`]. What stays

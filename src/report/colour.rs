@@ -143,7 +143,11 @@ mod tests {
         assert_eq!(ColourMap::Ember.at(1.0), EMBER[5]);
         assert_eq!(ColourMap::Tide.at(0.0), TIDE[0]);
         assert_eq!(ColourMap::Tide.at(1.0), TIDE[6]);
-        assert_eq!(ColourMap::Tide.at(0.5), TIDE[3], "zero is the neutral centre");
+        assert_eq!(
+            ColourMap::Tide.at(0.5),
+            TIDE[3],
+            "zero is the neutral centre"
+        );
         assert_eq!(ColourMap::Ember.at(-3.0), EMBER[0], "clamped below");
         assert_eq!(ColourMap::Ember.at(7.0), EMBER[5], "clamped above");
         assert_eq!(ColourMap::Ember.at(f64::NAN), MISSING);
@@ -157,7 +161,10 @@ mod tests {
         let mut last = -1.0;
         for k in 0..=100 {
             let l = lightness(ColourMap::Ember.at(k as f64 / 100.0));
-            assert!(l >= last - 1.0, "Ember lightness falls at {k}: {l} < {last}");
+            assert!(
+                l >= last - 1.0,
+                "Ember lightness falls at {k}: {l} < {last}"
+            );
             last = l;
         }
         let mid = lightness(ColourMap::Tide.at(0.5));

@@ -43,7 +43,13 @@ pub struct HistogramStyle {
 }
 
 /// The histogram image of `values` over `[lo, hi]`.
-pub fn histogram_image(values: &[f64], lo: f64, hi: f64, bins: usize, st: &HistogramStyle) -> Image {
+pub fn histogram_image(
+    values: &[f64],
+    lo: f64,
+    hi: f64,
+    bins: usize,
+    st: &HistogramStyle,
+) -> Image {
     let (w, h) = (st.width.max(8), st.height.max(8));
     let mut img = Image::filled(w, h, st.background);
     let counts = bin_counts(values, lo, hi, bins);

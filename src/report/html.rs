@@ -359,7 +359,11 @@ Bars are drawn to a common scale (the widest is the cohort's largest residual).<
                     .and_then(|l| l.residual_degrees)
                 {
                     Some(d) => {
-                        let w = if max > 0.0 { (d / max * 40.0).round() } else { 0.0 };
+                        let w = if max > 0.0 {
+                            (d / max * 40.0).round()
+                        } else {
+                            0.0
+                        };
                         let _ = write!(
                             h,
                             "<td>{}<span class=\"lm\" style=\"width:{}px\"></span></td>",
@@ -507,7 +511,11 @@ Blue is a negative, red a positive value; the scale is symmetric about 0 and cov
                 h,
                 "<div class=\"card stats\"><h3>{} {}</h3>",
                 esc(if s.hemi.is_empty() { "cohort" } else { &s.hemi }),
-                esc(if s.stat == "t" { "t statistic" } else { "effect" })
+                esc(if s.stat == "t" {
+                    "t statistic"
+                } else {
+                    "effect"
+                })
             );
             if !s.summary.is_empty() {
                 h.push_str("<table class=\"stats-summary\"><tbody>");

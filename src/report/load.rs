@@ -121,9 +121,8 @@ pub fn read_results(root: &Path) -> Result<CohortResults> {
     }
     let mut units = Vec::new();
     for (i, row) in rdr.records().enumerate() {
-        let row = row.map_err(|e| {
-            Error::bad_file(&qc_path, format!("row {}", i + 2), format!("{e}"))
-        })?;
+        let row =
+            row.map_err(|e| Error::bad_file(&qc_path, format!("row {}", i + 2), format!("{e}")))?;
         let qc: BTreeMap<String, String> = columns
             .iter()
             .cloned()
@@ -135,7 +134,9 @@ pub fn read_results(root: &Path) -> Result<CohortResults> {
             return Err(Error::bad_file(
                 &qc_path,
                 format!("row {}", i + 2),
-                format!("subject `{subject}`, hemi `{hemi}`; expected sub-<label> and a hemisphere"),
+                format!(
+                    "subject `{subject}`, hemi `{hemi}`; expected sub-<label> and a hemisphere"
+                ),
             ));
         }
         let rpath = root
@@ -245,7 +246,10 @@ pub fn load_geometry(
         Some(p) => match gifti::read_mesh(&p) {
             Ok(m) => Some(m),
             Err(e) => {
-                g.notes.push(format!("aligned sphere unreadable: {}", strip(&e.to_string(), root)));
+                g.notes.push(format!(
+                    "aligned sphere unreadable: {}",
+                    strip(&e.to_string(), root)
+                ));
                 None
             }
         },
@@ -262,7 +266,10 @@ pub fn load_geometry(
                 Some(m)
             }
             Err(e) => {
-                g.notes.push(format!("repaired surface unreadable: {}", strip(&e.to_string(), root)));
+                g.notes.push(format!(
+                    "repaired surface unreadable: {}",
+                    strip(&e.to_string(), root)
+                ));
                 None
             }
         },
@@ -273,7 +280,9 @@ pub fn load_geometry(
                     Some(m)
                 }
                 Err(_) => {
-                    g.notes.push(format!("input surface {rel} not readable in the study folder"));
+                    g.notes.push(format!(
+                        "input surface {rel} not readable in the study folder"
+                    ));
                     None
                 }
             },
@@ -305,7 +314,11 @@ pub fn load_geometry(
         .get("inputs")
         .and_then(|i| i.get("maps"))
         .and_then(|m| m.as_array())
-        .map(|a| a.iter().filter_map(|x| x.as_str().map(str::to_string)).collect())
+        .map(|a| {
+            a.iter()
+                .filter_map(|x| x.as_str().map(str::to_string))
+                .collect()
+        })
         .unwrap_or_default();
     if let (Some(k), Some(s), Some(nv)) = (maps.iter().position(|m| m == map), study, nv) {
         if let Some(f) = r.inputs.get(1 + k) {
@@ -324,7 +337,9 @@ pub fn load_geometry(
                     g.values = Some(v);
                     g.values_from = format!("{map} on the common sphere, carried back");
                 }
-                Err(e) => g.notes.push(format!("{map}: {}", strip(&e.to_string(), root))),
+                Err(e) => g
+                    .notes
+                    .push(format!("{map}: {}", strip(&e.to_string(), root))),
             }
         } else if sphere.is_some() {
             g.notes.push(format!("no `{map}` map for this unit"));
@@ -346,7 +361,11 @@ pub fn strip(msg: &str, root: &Path) -> String {
 fn carry_back(path: &Path, sphere: &TriMesh, targets: &Targets) -> Result<Vec<f64>> {
     let g = gifti::read(path)?;
     let a = g.arrays.first().ok_or_else(|| {
-        Error::bad_file(path, "DataArray 0", "missing; expected the resampled values")
+        Error::bad_file(
+            path,
+            "DataArray 0",
+            "missing; expected the resampled values",
+        )
     })?;
     let mut v = a.data.to_f64();
     if let Some(mask) = g.arrays.get(1) {
@@ -512,16 +531,8 @@ mod tests {
             p[2] *= 0.5;
         }
         let v = vertex_log_area_ratio(&m, &s);
-        let top = m
-            .positions
-            .iter()
-            .position(|p| p[2] > 0.999)
-            .unwrap();
-        let equator = m
-            .positions
-            .iter()
-            .position(|p| p[2].abs() < 1e-9)
-            .unwrap();
+        let top = m.positions.iter().position(|p| p[2] > 0.999).unwrap();
+        let equator = m.positions.iter().position(|p| p[2].abs() < 1e-9).unwrap();
         assert!(v[top] > v[equator] + 0.3, "{} vs {}", v[top], v[equator]);
     }
 }

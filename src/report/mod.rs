@@ -444,7 +444,11 @@ pub fn build_report(
     let v_lo = median(quant.iter().map(|q| q.v_lo)).unwrap_or(0.0);
     let v_hi = median(quant.iter().map(|q| q.v_hi)).unwrap_or(1.0);
     let ranges = Ranges {
-        values: if v_hi > v_lo { (v_lo, v_hi) } else { (v_lo, v_lo + 1.0) },
+        values: if v_hi > v_lo {
+            (v_lo, v_hi)
+        } else {
+            (v_lo, v_lo + 1.0)
+        },
         log_area: median(quant.iter().map(|q| q.lar))
             .filter(|&x| x > 0.0)
             .unwrap_or(1.0),
@@ -494,7 +498,10 @@ pub fn build_report(
             .iter()
             .filter(|u| u.field("status") == "failed")
             .count(),
-        pictured: pics.iter().filter(|p| p.by_map.is_some() || p.by_area.is_some()).count(),
+        pictured: pics
+            .iter()
+            .filter(|p| p.by_map.is_some() || p.by_area.is_some())
+            .count(),
         images: count_images(&bytes),
         stats_maps: stats.len(),
         bytes: bytes.len(),

@@ -208,7 +208,10 @@ mod tests {
     /// An independent minimal decoder: chunk walk with CRC check, inflate
     /// with flate2's decoder, undo the five filters.
     fn decode(bytes: &[u8]) -> Image {
-        assert_eq!(&bytes[..8], &[0x89, b'P', b'N', b'G', 0x0D, 0x0A, 0x1A, 0x0A]);
+        assert_eq!(
+            &bytes[..8],
+            &[0x89, b'P', b'N', b'G', 0x0D, 0x0A, 0x1A, 0x0A]
+        );
         let mut i = 8;
         let (mut w, mut h) = (0usize, 0usize);
         let mut idat = Vec::new();

@@ -247,10 +247,7 @@ impl Visibility {
     /// The triangle seen at sample `(x, y)`.
     pub fn face_at(&self, x: usize, y: usize) -> Option<u32> {
         let w = self.canvas.width * self.canvas.supersample.max(1);
-        self.face
-            .get(y * w + x)
-            .copied()
-            .filter(|&f| f != u32::MAX)
+        self.face.get(y * w + x).copied().filter(|&f| f != u32::MAX)
     }
 
     /// The image with per-vertex `colours` (sRGB) shaded by the view's
@@ -359,7 +356,11 @@ mod tests {
         }
         // Colours interpolate: a pixel near corner 0 is nearly its colour.
         let vis = Visibility::from_screen(&screen, &[[0, 1, 2]], vec![1.0; 3], canvas(12, 12));
-        let img = vis.shade(&[[0, 1, 2]], &[[255, 0, 0], [0, 255, 0], [0, 0, 255]], [0; 3]);
+        let img = vis.shade(
+            &[[0, 1, 2]],
+            &[[255, 0, 0], [0, 255, 0], [0, 0, 255]],
+            [0; 3],
+        );
         let c = img.get(1, 1).unwrap();
         assert!(c[0] > 200 && c[1] < 40 && c[2] < 40, "{c:?}");
         assert_eq!(img.get(0, 0), Some([0, 0, 0]), "background");
