@@ -77,7 +77,7 @@ impl ColourMap {
             return MISSING;
         }
         let span = hi - lo;
-        if !(span > 0.0) {
+        if span.is_nan() || span <= 0.0 {
             return self.at(0.5);
         }
         self.at((v - lo) / span)

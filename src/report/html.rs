@@ -145,10 +145,10 @@ impl Page<'_> {
 <link rel=\"icon\" href=\"data:,\">\
 <title>horosphere cohort QC report</title><style>{STYLE}</style></head><body><main>\n"
         );
-        let _ = write!(
+        let _ = writeln!(
             h,
             "<header class=\"top\"><div><h1>Cohort QC report</h1><div class=\"sub\">horosphere {} &middot; {} units (subject &times; hemisphere)</div></div>\
-<div class=\"tiles\"><div class=\"tile\"><b>{}</b>units</div><div class=\"tile ok\"><b>{}</b>ok</div><div class=\"tile rep\"><b>{}</b>repaired</div><div class=\"tile bad\"><b>{}</b>failed</div></div></header>\n",
+<div class=\"tiles\"><div class=\"tile\"><b>{}</b>units</div><div class=\"tile ok\"><b>{}</b>ok</div><div class=\"tile rep\"><b>{}</b>repaired</div><div class=\"tile bad\"><b>{}</b>failed</div></div></header>",
             env!("CARGO_PKG_VERSION"),
             units.len(),
             units.len(),
@@ -385,11 +385,11 @@ Bars are drawn to a common scale (the widest is the cohort's largest residual).<
 
     fn unit_cards(&self, h: &mut String) -> Result<()> {
         let r = self.ranges;
-        let _ = write!(
+        let _ = writeln!(
             h,
             "<h2 id=\"units\">Units</h2><p class=\"help\">Each unit: the mapped surface and its aligned sphere from the lateral, medial and dorsal side, \
 coloured by {} and by area distortion (log of the sphere's share of area over the surface's share, per vertex: blue = shrunk on the sphere, red = enlarged). \
-Colours use one scale for the whole cohort. Histograms are per face: log area ratio (dotted line at 0) and angle distortion, the ratio of the singular values of each triangle's map (dotted line at 1 = angles kept).</p>\n",
+Colours use one scale for the whole cohort. Histograms are per face: log area ratio (dotted line at 0) and angle distortion, the ratio of the singular values of each triangle's map (dotted line at 1 = angles kept).</p>",
             esc(self.map)
         );
         h.push_str("<div class=\"legend\">");
@@ -538,9 +538,9 @@ Blue is a negative, red a positive value; the scale is symmetric about 0 and cov
                 &s.stat,
             )?);
             h.push_str("</div>");
-            let _ = write!(
+            let _ = writeln!(
                 h,
-                "<div class=\"strip\"><div class=\"cap\">{}</div><img src=\"{}\" alt=\"{} map {}\"></div></div>\n",
+                "<div class=\"strip\"><div class=\"cap\">{}</div><img src=\"{}\" alt=\"{} map {}\"></div></div>",
                 s.panels.join(" &middot; "),
                 s.strip,
                 esc(&s.stat),

@@ -174,9 +174,12 @@ pub struct UnitGeometry {
     pub notes: Vec<String>,
 }
 
+/// A target sphere's points and locator (`None`: no icosphere level fits).
+pub type SharedTarget = std::sync::Arc<Option<(Vec<Vec3>, Locator)>>;
+
 /// Target spheres by vertex count, with their locators (built on demand).
 pub struct Targets {
-    cache: std::sync::Mutex<BTreeMap<usize, std::sync::Arc<Option<(Vec<Vec3>, Locator)>>>>,
+    cache: std::sync::Mutex<BTreeMap<usize, SharedTarget>>,
 }
 
 impl Default for Targets {
@@ -190,7 +193,7 @@ impl Default for Targets {
 impl Targets {
     /// The icosahedral target sphere with `n` vertices (`10 * 4^k + 2`)
     /// and its locator; `None` when no level has that count.
-    pub fn get(&self, n: usize) -> std::sync::Arc<Option<(Vec<Vec3>, Locator)>> {
+    pub fn get(&self, n: usize) -> SharedTarget {
         if let Ok(g) = self.cache.lock() {
             if let Some(t) = g.get(&n) {
                 return t.clone();
@@ -447,7 +450,7 @@ fn frame(t: [Vec3; 3]) -> Option<[f64; 3]> {
     let e1 = sub(t[1], t[0]);
     let e2 = sub(t[2], t[0]);
     let l1 = norm(e1);
-    if !(l1 > 0.0) {
+    if l1.is_nan() || l1 <= 0.0 {
         return None;
     }
     let q = crate::mesh::dot(e1, e2) / l1;

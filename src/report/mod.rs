@@ -394,7 +394,7 @@ fn stats_pictures(dir: &Path, opts: &ReportOptions) -> Result<Vec<StatsPicture>>
             let mesh = crate::mesh::shapes::icosphere(k, 100.0);
             let abs: Vec<f64> = vals.iter().map(|x| x.abs()).collect();
             let mut r = percentile(&abs, 0.99);
-            if !(r > 0.0) || !r.is_finite() {
+            if !r.is_finite() || r <= 0.0 {
                 r = 1.0;
             }
             let colours: Vec<[u8; 3]> = vals

@@ -192,7 +192,7 @@ impl Visibility {
 
     fn triangle(&mut self, fi: u32, a: [f64; 3], b: [f64; 3], c: [f64; 3], w: usize, h: usize) {
         let area = (b[0] - a[0]) * (c[1] - a[1]) - (b[1] - a[1]) * (c[0] - a[0]);
-        if !(area.abs() > 1e-12) || !area.is_finite() {
+        if !area.is_finite() || area.abs() <= 1e-12 {
             return;
         }
         let x0 = a[0].min(b[0]).min(c[0]).floor().max(0.0);
