@@ -600,3 +600,45 @@ fn a_failed_report_keeps_the_cohort_results() {
         std::fs::read(reference.join("group/desc-cohort_qc.csv")).unwrap()
     );
 }
+
+/// The report's per-face distortion (`report::load::face_distortion`, one
+/// implementation) on the conformal sphere agrees with the mapper's own
+/// figures in the QC table (`map::face_metrics`, another; nearest-rank
+/// percentiles there, interpolated here).
+#[test]
+fn report_distortion_agrees_with_the_mappers_figures() {
+    use horosphere::report::colour::percentile;
+    let out = reference_run();
+    let mut checked = 0;
+    for r in qc(out).iter().filter(|r| r["status"] != "failed") {
+        let unit = format!("{}_hemi-{}", r["subject"], r["hemi"]);
+        let native = if r["status"] == "repaired" {
+            out.join(&r["subject"])
+                .join(format!("{unit}_space-native_desc-repaired_white.surf.gii"))
+        } else {
+            study()
+                .join(&r["subject"])
+                .join(format!("{unit}_white.surf.gii"))
+        };
+        let native = horosphere::io::read_mesh(&native).unwrap();
+        let sphere = horosphere::io::read_mesh(&out.join(&r["subject"]).join(format!(
+            "{unit}_space-individual_desc-conformal_sphere.surf.gii"
+        )))
+        .unwrap();
+        let (lar, ang) = horosphere::report::load::face_distortion(&native, &sphere);
+        let close = |ours: f64, col: &str, tol: f64| {
+            let theirs: f64 = r[col].parse().unwrap();
+            assert!(
+                (ours - theirs).abs() <= tol * theirs.abs().max(0.1),
+                "{unit} {col}: report {ours}, mapper {theirs}"
+            );
+        };
+        // Spheres are stored in single precision: small tolerances.
+        close(percentile(&ang, 0.5), "angle_distortion_p50", 0.01);
+        close(percentile(&ang, 0.95), "angle_distortion_p95", 0.02);
+        close(percentile(&lar, 0.05), "log_area_ratio_p5", 0.02);
+        close(percentile(&lar, 0.95), "log_area_ratio_p95", 0.02);
+        checked += 1;
+    }
+    assert!(checked >= 6, "{checked}");
+}

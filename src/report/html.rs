@@ -389,7 +389,7 @@ Bars are drawn to a common scale (the widest is the cohort's largest residual).<
             h,
             "<h2 id=\"units\">Units</h2><p class=\"help\">Each unit: the mapped surface and its aligned sphere from the lateral, medial and dorsal side, \
 coloured by {} and by area distortion (log of the sphere's share of area over the surface's share, per vertex: blue = shrunk on the sphere, red = enlarged). \
-Colours use one scale for the whole cohort. Histograms are per face: log area ratio (dotted line at 0) and angle distortion, the ratio of the singular values of each triangle's map (dotted line at 1 = angles kept).</p>",
+Colours use one scale for the whole cohort. Histograms are per face, surface to aligned sphere: log area ratio (dotted line at 0) and angle distortion, the ratio of the singular values of each triangle's map (dotted line at 1 = angles kept); the QC table's distortion columns are the mapper's, before alignment.</p>",
             esc(self.map)
         );
         h.push_str("<div class=\"legend\">");
