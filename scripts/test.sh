@@ -20,6 +20,19 @@ cargo test --all-targets
 # Doc tests run in the same dev profile.
 cargo test --doc
 
+echo "== chromium (for the report check in a real browser)"
+# tests/reference/test_report_chromium.py opens the HTML report in Debian's
+# chromium through Playwright (no browser download). Install it when missing.
+if [ ! -x /usr/bin/chromium ]; then
+  if [ "$(id -u)" -eq 0 ]; then
+    apt-get update -qq && apt-get install -y -qq chromium
+  elif command -v sudo >/dev/null 2>&1; then
+    sudo apt-get update -qq && sudo apt-get install -y -qq chromium
+  else
+    echo "chromium is missing and neither root nor sudo is available; the browser check will skip (or fail when CI is set)" >&2
+  fi
+fi
+
 echo "== reference checks (Python venv)"
 venv=${HOROSPHERE_VENV:-$root/.venv}
 if [ ! -x "$venv/bin/python" ]; then

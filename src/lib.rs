@@ -19,6 +19,7 @@ pub mod map;
 pub mod mesh;
 pub mod moebius;
 pub mod repair;
+pub mod report;
 pub mod resample;
 pub mod stats;
 pub mod synth;

@@ -477,3 +477,168 @@ fn one_process_per_unit_gives_the_bytes_of_one_run() {
     assert_eq!(code, 1, "the cohort step reports the failed unit");
     assert_same_tree(reference, &out);
 }
+
+/// The QC report `run` writes: one QC row per unit in QC-table order
+/// (failed ones included), the research-use caution, pictures for every
+/// finished unit, no absolute path; `horosphere report` with the study
+/// folder gives the same bytes, and the same for any thread count.
+#[test]
+fn the_run_writes_a_report_with_one_row_per_unit() {
+    let out = reference_run();
+    let rows = qc(out);
+    let html = std::fs::read_to_string(out.join("group/desc-cohort_report.html")).unwrap();
+    let units: Vec<String> = html
+        .split("data-unit=\"")
+        .skip(1)
+        .map(|s| s.split('"').next().unwrap().to_string())
+        .collect();
+    let want: Vec<String> = rows
+        .iter()
+        .map(|r| format!("{}_hemi-{}", r["subject"], r["hemi"]))
+        .collect();
+    assert_eq!(units, want);
+    let failed = rows.iter().filter(|r| r["status"] == "failed").count();
+    assert_eq!(
+        html.matches("<span class=\"chip failed\">").count(),
+        3 * failed
+    );
+    assert!(html.contains("not a medical device"));
+    assert!(html.contains("trained analyst"));
+    assert!(html.contains("data-protection"));
+    // Two picture strips per finished unit, plus histograms and colour bars.
+    let strips = html.matches("alt=\"area distortion of ").count();
+    assert_eq!(strips, rows.len() - failed);
+    assert!(html.matches("<img ").count() >= 4 * (rows.len() - failed) + 2);
+    assert!(!html.contains(&*out.to_string_lossy()), "no absolute paths");
+    assert!(
+        !html.contains(&*study().to_string_lossy()),
+        "no absolute paths"
+    );
+    // Sidecar with the report's hash.
+    let side: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(out.join("group/desc-cohort_report.json")).unwrap())
+            .unwrap();
+    assert_eq!(
+        side["output"]["sha256"],
+        horosphere::cohort::provenance::sha256_bytes(html.as_bytes())
+    );
+    // The report command: same bytes with the study folder, any thread count.
+    let d = scratch("report-cli");
+    for jobs in ["1", "2"] {
+        let p = d.join(format!("r{jobs}.html"));
+        let o = Command::new(BIN)
+            .arg("report")
+            .arg(out)
+            .arg("-o")
+            .arg(&p)
+            .arg("--study")
+            .arg(study())
+            .args(["--jobs", jobs, "--json"])
+            .output()
+            .unwrap();
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        let v: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+        assert_eq!(v["summary"]["units"], rows.len());
+        assert_eq!(v["summary"]["failed"], failed);
+        assert_eq!(std::fs::read_to_string(&p).unwrap(), html, "jobs {jobs}");
+    }
+    // Without the study folder, unchanged surfaces are shown as spheres only.
+    let p = d.join("nostudy.html");
+    let o = Command::new(BIN)
+        .arg("report")
+        .arg(out)
+        .arg("-o")
+        .arg(&p)
+        .output()
+        .unwrap();
+    assert!(o.status.success());
+    let text = std::fs::read_to_string(&p).unwrap();
+    assert!(text.contains("no study folder was given"));
+}
+
+#[test]
+fn report_on_a_folder_that_is_not_a_run_output_is_a_clear_error() {
+    let d = scratch("not-a-run");
+    let o = Command::new(BIN)
+        .arg("report")
+        .arg(&d)
+        .arg("-o")
+        .arg(d.join("r.html"))
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(1));
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(err.contains("dataset_description.json"), "{err}");
+    assert!(err.contains("horosphere run"), "{err}");
+    assert!(!d.join("r.html").exists());
+}
+
+/// A report that cannot be written is an error (non-zero exit) but the
+/// cohort files are complete.
+#[test]
+fn a_failed_report_keeps_the_cohort_results() {
+    let reference = reference_run();
+    let d = scratch("report-fails");
+    let out = d.join("out");
+    for (rel, bytes) in tree(reference) {
+        let p = out.join(rel);
+        std::fs::create_dir_all(p.parent().unwrap()).unwrap();
+        std::fs::write(p, bytes).unwrap();
+    }
+    std::fs::remove_file(out.join("group/desc-cohort_qc.csv")).unwrap();
+    // A folder where the report goes: the final rename must fail.
+    let blocker = out.join("group/desc-cohort_report.html");
+    std::fs::remove_file(&blocker).unwrap();
+    std::fs::create_dir_all(blocker.join("x")).unwrap();
+    let m = manifest(&d, study(), &out);
+    let (code, v, err) = run(&m, &["--cohort-only", "--allow-failed"]);
+    assert_eq!(code, 1, "{err}");
+    assert!(v["report_error"].is_string(), "{v}");
+    assert!(err.contains("QC report could not be written"), "{err}");
+    assert_eq!(
+        std::fs::read(out.join("group/desc-cohort_qc.csv")).unwrap(),
+        std::fs::read(reference.join("group/desc-cohort_qc.csv")).unwrap()
+    );
+}
+
+/// The report's per-face distortion (`report::load::face_distortion`, one
+/// implementation) on the conformal sphere agrees with the mapper's own
+/// figures in the QC table (`map::face_metrics`, another; nearest-rank
+/// percentiles there, interpolated here).
+#[test]
+fn report_distortion_agrees_with_the_mappers_figures() {
+    use horosphere::report::colour::percentile;
+    let out = reference_run();
+    let mut checked = 0;
+    for r in qc(out).iter().filter(|r| r["status"] != "failed") {
+        let unit = format!("{}_hemi-{}", r["subject"], r["hemi"]);
+        let native = if r["status"] == "repaired" {
+            out.join(&r["subject"])
+                .join(format!("{unit}_space-native_desc-repaired_white.surf.gii"))
+        } else {
+            study()
+                .join(&r["subject"])
+                .join(format!("{unit}_white.surf.gii"))
+        };
+        let native = horosphere::io::read_mesh(&native).unwrap();
+        let sphere = horosphere::io::read_mesh(&out.join(&r["subject"]).join(format!(
+            "{unit}_space-individual_desc-conformal_sphere.surf.gii"
+        )))
+        .unwrap();
+        let (lar, ang) = horosphere::report::load::face_distortion(&native, &sphere);
+        let close = |ours: f64, col: &str, tol: f64| {
+            let theirs: f64 = r[col].parse().unwrap();
+            assert!(
+                (ours - theirs).abs() <= tol * theirs.abs().max(0.1),
+                "{unit} {col}: report {ours}, mapper {theirs}"
+            );
+        };
+        // Spheres are stored in single precision: small tolerances.
+        close(percentile(&ang, 0.5), "angle_distortion_p50", 0.01);
+        close(percentile(&ang, 0.95), "angle_distortion_p95", 0.02);
+        close(percentile(&lar, 0.05), "log_area_ratio_p5", 0.02);
+        close(percentile(&lar, 0.95), "log_area_ratio_p95", 0.02);
+        checked += 1;
+    }
+    assert!(checked >= 6, "{checked}");
+}

@@ -13,6 +13,7 @@ mod inspect;
 mod map;
 mod matrix;
 mod repair;
+mod report;
 mod resample;
 mod run;
 mod sphere;
@@ -54,6 +55,8 @@ enum Command {
     Matrix(matrix::MatrixArgs),
     /// Vertex-wise linear model on a cohort matrix: effect, se, t, p, BH q and Cohen's d maps.
     Stats(stats::StatsArgs),
+    /// Write the cohort QC report: one self-contained HTML file with tables, pictures and histograms.
+    Report(report::ReportArgs),
 }
 
 /// Run the command line and return the exit status.
@@ -72,6 +75,7 @@ pub fn main() -> ExitCode {
         Command::Sphere(args) => sphere::run(args),
         Command::Matrix(args) => matrix::run(args),
         Command::Stats(args) => stats::run(args),
+        Command::Report(args) => report::run(args),
     };
     match result {
         Ok(code) => code,

@@ -155,6 +155,11 @@ pub fn run(args: &RunArgs) -> Result<ExitCode> {
                 eprintln!("cohort: matrices and QC table");
             }
         }
+        Event::Report => {
+            if !terminal {
+                eprintln!("cohort: QC report");
+            }
+        }
     };
     let summary = run_cohort(&manifest, &opts, &progress)?;
     if let Some(b) = bar.lock().ok().and_then(|mut g| g.take()) {
@@ -173,6 +178,8 @@ pub fn run(args: &RunArgs) -> Result<ExitCode> {
             "failed": summary.failed.iter().map(|(u, e)| serde_json::json!({"unit": u, "error": e})).collect::<Vec<_>>(),
             "cohort_failed": summary.group.as_ref().map(|g| g.failed),
             "cohort_files": summary.group.as_ref().map(|g| g.files.clone()),
+            "report": summary.report.as_ref().and_then(|r| r.as_ref().ok()),
+            "report_error": summary.report.as_ref().and_then(|r| r.as_ref().err()),
         });
         println!("{}", serde_json::to_string_pretty(&v).unwrap_or_default());
     } else {
@@ -192,6 +199,12 @@ pub fn run(args: &RunArgs) -> Result<ExitCode> {
                 ))
                 .unwrap_or_default()
         );
+    }
+    if let Some(Err(e)) = &summary.report {
+        eprintln!(
+            "horosphere: the QC report could not be written (the cohort files are complete): {e}"
+        );
+        return Ok(ExitCode::FAILURE);
     }
     if failed_total > 0 && !args.allow_failed {
         Ok(ExitCode::FAILURE)

@@ -1,5 +1,5 @@
 //! Running a cohort: every unit (subject and hemisphere) through the chain
-//! in parallel, then the cohort step.
+//! in parallel, then the cohort step and the QC report ([`crate::report`]).
 //!
 //! In: a [`Manifest`] and [`RunOptions`]. Out: the files of
 //! [`super::unit`] and [`super::group`] and a [`RunSummary`]. What stays
@@ -11,9 +11,10 @@
 use super::discover::{units, Unit};
 use super::group::{write_dataset_description, write_group, GroupSummary};
 use super::manifest::Manifest;
-use super::provenance::sha256_file;
+use super::provenance::{sha256_file, write_sidecar, FileHash, GeneratedBy, Sidecar};
 use super::unit::{run_unit, Shared, UnitRecord};
 use crate::error::{Error, Result};
+use crate::report::{write_report, ReportOptions, RUN_REPORT};
 use crate::resample::target::{Target, DEFAULT_SPHERE_TOLERANCE};
 use rayon::prelude::*;
 
@@ -50,6 +51,8 @@ pub enum Event {
     },
     /// The cohort step starts.
     Group,
+    /// The QC report is being drawn.
+    Report,
 }
 
 /// What a run did.
@@ -65,6 +68,10 @@ pub struct RunSummary {
     pub failed: Vec<(String, String)>,
     /// The cohort step, when it ran.
     pub group: Option<GroupSummary>,
+    /// The QC report (after the cohort step): its path relative to the
+    /// output root, or why it could not be written. The cohort files are
+    /// written before it, so a failed report loses none of them.
+    pub report: Option<std::result::Result<String, String>>,
 }
 
 /// The target sphere and its label.
@@ -100,6 +107,7 @@ pub fn run(
         skipped: 0,
         failed: Vec::new(),
         group: None,
+        report: None,
     };
     if !opts.skip_units {
         progress(Event::Start {
@@ -162,6 +170,44 @@ pub fn run(
     if !opts.skip_group {
         progress(Event::Group);
         summary.group = Some(write_group(m, &all_units, &shared.space)?);
+        progress(Event::Report);
+        let pool = rayon::ThreadPoolBuilder::new()
+            .num_threads(opts.jobs.max(1))
+            .build()
+            .map_err(|e| {
+                Error::Invalid(format!("cannot start {} worker threads: {e}", opts.jobs))
+            })?;
+        summary.report = Some(
+            pool.install(|| write_run_report(m))
+                .map(|()| RUN_REPORT.to_string())
+                .map_err(|e| e.to_string()),
+        );
     }
     Ok(summary)
+}
+
+/// Write the QC report of the run (`group/desc-cohort_report.html`, see
+/// [`crate::report`]) with its provenance sidecar (input: the QC table).
+pub fn write_run_report(m: &Manifest) -> Result<()> {
+    let out = m.output.join(RUN_REPORT);
+    let opts = ReportOptions {
+        study: Some(m.root.clone()),
+        ..ReportOptions::default()
+    };
+    let summary = write_report(&m.output, &out, &opts, &|_, _| {})?;
+    let qc = crate::report::load::QC_TABLE;
+    let sidecar = Sidecar {
+        generated_by: GeneratedBy::this(),
+        stage: "report".into(),
+        inputs: vec![FileHash {
+            path: qc.into(),
+            sha256: sha256_file(&m.output.join(qc))?,
+        }],
+        options: serde_json::json!({ "map": opts.map, "units": summary.units }),
+        output: FileHash {
+            path: RUN_REPORT.into(),
+            sha256: sha256_file(&out)?,
+        },
+    };
+    write_sidecar(&out, &sidecar)
 }
