@@ -430,3 +430,91 @@ pub fn read_template(dir: &Path) -> Result<Template> {
     t.check().map_err(|e| e.in_file(&path, "template"))?;
     Ok(t)
 }
+
+/// One row of a registration cohort table.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TableRow {
+    pub subject: String,
+    pub sphere: std::path::PathBuf,
+    /// One map file per feature, in the header's order.
+    pub features: Vec<std::path::PathBuf>,
+    /// 1-based line number in the table.
+    pub line: usize,
+}
+
+/// Read a cohort table for [`build_template`]: CSV with the header
+/// `subject,sphere,<feature>,...` (at least one feature column, the
+/// column names being the feature names), one row per subject, paths
+/// relative to the table's folder. Returns the feature names and the rows.
+pub fn read_table(path: &Path) -> Result<(Vec<String>, Vec<TableRow>)> {
+    let (mut rdr, header) = crate::align::open_csv(path)?;
+    if header.len() < 3 || header[0] != "subject" || header[1] != "sphere" {
+        return Err(Error::bad_file(
+            path,
+            "header",
+            format!("found columns {header:?}; expected `subject,sphere,<feature>,...` with at least one feature column"),
+        ));
+    }
+    let names: Vec<String> = header[2..].to_vec();
+    for (i, n) in names.iter().enumerate() {
+        check_name(n).map_err(|e| e.in_file(path, "header"))?;
+        if names[..i].contains(n) {
+            return Err(Error::bad_file(
+                path,
+                "header",
+                format!("feature column `{n}` appears twice"),
+            ));
+        }
+    }
+    let base = path.parent().unwrap_or(Path::new(""));
+    let resolve = |s: &str| {
+        let p = Path::new(s);
+        if p.is_absolute() {
+            p.to_path_buf()
+        } else {
+            base.join(p)
+        }
+    };
+    let mut rows: Vec<TableRow> = Vec::new();
+    for row in crate::align::csv_rows(path, &mut rdr) {
+        let (line, element, rec) = row?;
+        let field = |i: usize| rec.get(i).unwrap_or("");
+        for (i, what) in header.iter().enumerate() {
+            if field(i).is_empty() {
+                return Err(Error::bad_file(
+                    path,
+                    &element,
+                    format!("empty `{what}` cell"),
+                ));
+            }
+        }
+        if rows.iter().any(|r| r.subject == field(0)) {
+            return Err(Error::bad_file(
+                path,
+                &element,
+                format!("subject `{}` is listed twice", field(0)),
+            ));
+        }
+        rows.push(TableRow {
+            subject: field(0).to_string(),
+            sphere: resolve(field(1)),
+            features: (2..header.len()).map(|i| resolve(field(i))).collect(),
+            line,
+        });
+    }
+    if rows.is_empty() {
+        return Err(Error::bad_file(
+            path,
+            "rows",
+            "no subjects; expected at least one row",
+        ));
+    }
+    Ok((names, rows))
+}
+
+/// Read one feature map (the first per-vertex array of a GIFTI file) as
+/// `f64`.
+pub fn read_feature(path: &Path) -> Result<Vec<f64>> {
+    let s = gifti::read_shape(path)?;
+    Ok(s.values.iter().map(|&x| f64::from(x)).collect())
+}
