@@ -303,3 +303,106 @@ fn template_folder_round_trip_and_another_mesh() {
     assert!(e.contains("sphere.surf.gii") && e.contains("expected the icosphere of level 3"), "{e}");
     let _ = std::fs::remove_dir_all(&dir);
 }
+
+// ------------------------------------------------------------- commands
+
+#[test]
+fn register_template_and_register_commands() {
+    use horosphere::io::gifti::{write_shape, MetaData};
+    use std::process::Command;
+    let bin = env!("CARGO_BIN_EXE_horosphere");
+    let dir = std::env::temp_dir().join(format!("horosphere-register-cli-{}", std::process::id()));
+    let _ = std::fs::remove_dir_all(&dir);
+    std::fs::create_dir_all(&dir).unwrap();
+    let mut rng = Rng::new(21);
+    let fields = [Field::random(&mut rng, 16, 8.0), Field::random(&mut rng, 16, 8.0)];
+    let warp = Warp {
+        swirls: vec![(unit([0.1, 0.9, 0.3]), 0.2, 0.5)],
+    };
+    let mut table = String::from("subject,sphere,depth,curv\n");
+    for s in 0..2 {
+        let sphere = rotated_sphere(4, 100.0, &mut rng);
+        let sp = dir.join(format!("s{s}.surf.gii"));
+        horosphere::io::gifti::write_mesh(&sp, &sphere).unwrap();
+        for (k, f) in fields.iter().enumerate() {
+            let vals: Vec<f32> = sphere
+                .positions
+                .iter()
+                .map(|&p| {
+                    let x = unit(p);
+                    let x = if s == 1 { warp.apply(x) } else { x };
+                    f.at(x) as f32
+                })
+                .collect();
+            write_shape(&dir.join(format!("s{s}-f{k}.shape.gii")), &vals, &MetaData::new()).unwrap();
+        }
+        table.push_str(&format!("s{s},s{s}.surf.gii,s{s}-f0.shape.gii,s{s}-f1.shape.gii\n"));
+    }
+    std::fs::write(dir.join("cohort.csv"), &table).unwrap();
+    let tdir = dir.join("tpl");
+    let out = Command::new(bin)
+        .args(["register-template", "--cohort"])
+        .arg(dir.join("cohort.csv"))
+        .arg("-o")
+        .arg(&tdir)
+        .args(["--level", "3", "--rounds", "1", "--json"])
+        .output()
+        .unwrap();
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    let rep: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    assert_eq!(rep["features"], serde_json::json!(["depth", "curv"]));
+    let t = read_template(&tdir).unwrap();
+    assert_eq!((t.level, t.subjects), (3, 2));
+    // Register subject 1 to it.
+    let warped = dir.join("s1-warped.surf.gii");
+    let report = dir.join("s1.json");
+    let out = Command::new(bin)
+        .arg("register")
+        .arg(dir.join("s1.surf.gii"))
+        .arg("--features")
+        .arg(dir.join("s1-f0.shape.gii"))
+        .arg("--features")
+        .arg(dir.join("s1-f1.shape.gii"))
+        .arg("--template")
+        .arg(&tdir)
+        .arg("-o")
+        .arg(&warped)
+        .arg("--report")
+        .arg(&report)
+        .output()
+        .unwrap();
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    let text = String::from_utf8_lossy(&out.stdout);
+    assert!(text.contains("correlation depth"), "{text}");
+    let r: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&report).unwrap()).unwrap();
+    assert_eq!(r["jacobian"]["folded"], 0);
+    let (b, a) = (
+        r["features"][0]["before"].as_f64().unwrap(),
+        r["features"][0]["after"].as_f64().unwrap(),
+    );
+    assert!(a > b, "correlation {b} -> {a}");
+    let m = horosphere::io::read_mesh(&warped).unwrap();
+    assert_eq!(m.n_vertices(), 2562);
+    // A feature file of the wrong length: the error names it; no output.
+    let short = dir.join("short.shape.gii");
+    write_shape(&short, &vec![1.0f32; 642], &MetaData::new()).unwrap();
+    let out = Command::new(bin)
+        .arg("register")
+        .arg(dir.join("s1.surf.gii"))
+        .arg("--features")
+        .arg(dir.join("s1-f0.shape.gii"))
+        .arg("--features")
+        .arg(&short)
+        .arg("--template")
+        .arg(&tdir)
+        .arg("-o")
+        .arg(dir.join("never.surf.gii"))
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(1));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(err.contains("short.shape.gii") && err.contains("642 values"), "{err}");
+    assert!(!dir.join("never.surf.gii").exists());
+    let _ = std::fs::remove_dir_all(&dir);
+}

@@ -48,7 +48,14 @@ impl VelocityField {
 
     /// The field at direction `x` (unit).
     pub fn eval(&self, grid: &IcoGrid, x: Vec3) -> Vec3 {
-        let h = grid.locate(x, self.level);
+        self.eval_hint(grid, x, &mut None)
+    }
+
+    /// [`VelocityField::eval`], trying the control face in `hint` first
+    /// and leaving the face used there.
+    pub fn eval_hint(&self, grid: &IcoGrid, x: Vec3, hint: &mut Option<u32>) -> Vec3 {
+        let h = grid.locate_hint(x, self.level, *hint);
+        *hint = Some(h.face);
         let mut v = [0.0; 3];
         for j in 0..3 {
             let vj = self.vectors[h.vertices[j] as usize];
@@ -108,8 +115,9 @@ impl VelocityField {
             .with_min_len(256)
             .map(|&p| {
                 let mut x = unit(p);
+                let mut hint = None;
                 for _ in 0..n {
-                    let f = |y: Vec3| self.eval(grid, unit(y));
+                    let mut f = |y: Vec3| self.eval_hint(grid, unit(y), &mut hint);
                     let k1 = f(x);
                     let k2 = f(axpy(x, 0.5 * h, k1));
                     let k3 = f(axpy(x, 0.5 * h, k2));

@@ -147,6 +147,29 @@ impl IcoGrid {
         }
     }
 
+    /// [`IcoGrid::locate`], trying face `hint` of level `k` first: when it
+    /// contains `x` (all edge tests `>= 0`) its weights are returned
+    /// directly, otherwise the hierarchy is descended. Both give a face
+    /// containing `x`; on a shared edge or vertex the interpolated values
+    /// agree, since the weights there depend only on the shared corners.
+    pub fn locate_hint(&self, x: Vec3, k: u32, hint: Option<u32>) -> Hit {
+        if let Some(f) = hint {
+            let t = self.faces[k as usize][f as usize];
+            let w = self.tests(t, x);
+            if w[0] >= 0.0 && w[1] >= 0.0 && w[2] >= 0.0 {
+                let s = w[0] + w[1] + w[2];
+                if s > 0.0 {
+                    return Hit {
+                        face: f,
+                        vertices: t,
+                        weights: [w[0] / s, w[1] / s, w[2] / s],
+                    };
+                }
+            }
+        }
+        self.locate(x, k)
+    }
+
     /// Interpolate the scalar field `f` (one value per vertex of level `k`)
     /// at direction `x`.
     pub fn interpolate(&self, f: &[f64], k: u32, x: Vec3) -> f64 {

@@ -418,13 +418,19 @@ fn residual(t: &[Vec<f64>], w: &[Vec<f64>], areas: &[f64]) -> f64 {
     e / sw
 }
 
+/// `maps` (on the finest level of `grid`) at the points `phi`: each point
+/// is located once for all maps.
 fn pull_back(grid: &IcoGrid, maps: &[Vec<f64>], phi: &[Vec3]) -> Vec<Vec<f64>> {
     let level = grid.finest();
+    let hits: Vec<grid::Hit> = phi
+        .par_iter()
+        .with_min_len(512)
+        .map(|&x| grid.locate(x, level))
+        .collect();
     maps.iter()
         .map(|m| {
-            phi.par_iter()
-                .with_min_len(512)
-                .map(|&x| grid.interpolate(m, level, x))
+            hits.iter()
+                .map(|h| (0..3).map(|j| h.weights[j] * m[h.vertices[j] as usize]).sum())
                 .collect()
         })
         .collect()
