@@ -68,12 +68,22 @@ fn main() {
     let mut srng = Rng::new(8);
     let sphere = base_sphere(n, 0.15, &mut srng).expect("base sphere");
     let sphere = horosphere::TriMesh {
-        positions: sphere.positions.iter().map(|p| scale(unit(*p), 100.0)).collect(),
+        positions: sphere
+            .positions
+            .iter()
+            .map(|p| scale(unit(*p), 100.0))
+            .collect(),
         faces: sphere.faces,
     };
     let features: Vec<Vec<f64>> = fields
         .iter()
-        .map(|f| sphere.positions.iter().map(|&p| at(f, warp(unit(p)))).collect())
+        .map(|f| {
+            sphere
+                .positions
+                .iter()
+                .map(|&p| at(f, warp(unit(p))))
+                .collect()
+        })
         .collect();
     let areas = IcoGrid::new(level).vertex_areas(level);
     let template = Template {
@@ -101,8 +111,8 @@ fn main() {
     );
     let cpu0 = process_cpu();
     let t = Instant::now();
-    let reg = register(&sphere, &features, &template, &RegisterOptions::default())
-        .expect("registration");
+    let reg =
+        register(&sphere, &features, &template, &RegisterOptions::default()).expect("registration");
     let wall = t.elapsed().as_secs_f64();
     let cpu = process_cpu() - cpu0;
     let r = &reg.report;

@@ -91,15 +91,26 @@ fn names(n: usize) -> Vec<String> {
 #[test]
 fn a_known_diffeomorphism_is_recovered() {
     let mut rng = Rng::new(11);
-    let fields = [Field::random(&mut rng, 24, 8.0), Field::random(&mut rng, 24, 8.0)];
+    let fields = [
+        Field::random(&mut rng, 24, 8.0),
+        Field::random(&mut rng, 24, 8.0),
+    ];
     let level = 4;
     let template = Template {
         level,
         names: names(2),
         features: fields
             .iter()
-            .map(|f| icosphere(level, 1.0).positions.iter().map(|&x| f.at(x)).collect())
-            .map(|m: Vec<f64>| horosphere::register::zscore(&m, &IcoGrid::new(level).vertex_areas(level)).unwrap())
+            .map(|f| {
+                icosphere(level, 1.0)
+                    .positions
+                    .iter()
+                    .map(|&x| f.at(x))
+                    .collect()
+            })
+            .map(|m: Vec<f64>| {
+                horosphere::register::zscore(&m, &IcoGrid::new(level).vertex_areas(level)).unwrap()
+            })
             .collect(),
         subjects: 1,
     };
@@ -119,8 +130,12 @@ fn a_known_diffeomorphism_is_recovered() {
         .map(|f| truth.iter().map(|&x| f.at(x)).collect())
         .collect();
     let reg = register(&subject, &feats, &template, &RegisterOptions::default()).unwrap();
-    let before: f64 =
-        dirs.iter().zip(&truth).map(|(a, b)| angle(*a, *b)).sum::<f64>() / dirs.len() as f64;
+    let before: f64 = dirs
+        .iter()
+        .zip(&truth)
+        .map(|(a, b)| angle(*a, *b))
+        .sum::<f64>()
+        / dirs.len() as f64;
     let after: f64 = reg
         .warped
         .positions
@@ -138,8 +153,14 @@ fn a_known_diffeomorphism_is_recovered() {
         reg.report
     );
     // Measured: 6.68 deg before, 0.49 deg after, spacing 4.33 deg.
-    assert!(before > 1.5 * spacing, "the test warp is too small: {before}");
-    assert!(after < 0.2 * spacing, "mean error {after} rad, spacing {spacing}");
+    assert!(
+        before > 1.5 * spacing,
+        "the test warp is too small: {before}"
+    );
+    assert!(
+        after < 0.2 * spacing,
+        "mean error {after} rad, spacing {spacing}"
+    );
     assert!(after < before / 8.0);
     assert_eq!(reg.report.jacobian.folded, 0);
     assert!(reg.report.jacobian.min > 0.0);
@@ -155,7 +176,10 @@ fn a_known_diffeomorphism_is_recovered() {
 #[test]
 fn a_subject_registered_to_itself_stays_in_place() {
     let mut rng = Rng::new(5);
-    let fields = [Field::random(&mut rng, 20, 8.0), Field::random(&mut rng, 20, 8.0)];
+    let fields = [
+        Field::random(&mut rng, 20, 8.0),
+        Field::random(&mut rng, 20, 8.0),
+    ];
     let subject = rotated_sphere(4, 80.0, &mut rng);
     let feats: Vec<Vec<f64>> = fields
         .iter()
@@ -221,9 +245,18 @@ fn synthetic_cohort_depth_correlation_rises_for_every_subject() {
     assert_eq!(template.subjects, n_subjects);
     eprintln!("{:#?}", report.rounds);
     for (i, s) in subjects.iter().enumerate() {
-        let reg = register(&s.sphere, &s.features, &template, &RegisterOptions::default()).unwrap();
+        let reg = register(
+            &s.sphere,
+            &s.features,
+            &template,
+            &RegisterOptions::default(),
+        )
+        .unwrap();
         let f = &reg.report.features[0];
-        eprintln!("subject {i}: depth correlation {:.3} -> {:.3}", f.before, f.after);
+        eprintln!(
+            "subject {i}: depth correlation {:.3} -> {:.3}",
+            f.before, f.after
+        );
         // Measured: 0.79, 0.78, 0.77 -> 0.88, 0.87, 0.89.
         assert!(f.after > f.before + 0.05, "subject {i}: {f:?}");
         assert_eq!(reg.report.jacobian.folded, 0);
@@ -237,7 +270,11 @@ fn small_case() -> (TriMesh, Vec<Vec<f64>>, Template) {
     let mut rng = Rng::new(3);
     let field = Field::random(&mut rng, 12, 6.0);
     let subject = rotated_sphere(3, 50.0, &mut rng);
-    let feats = vec![subject.positions.iter().map(|&p| field.at(unit(p))).collect::<Vec<f64>>()];
+    let feats = vec![subject
+        .positions
+        .iter()
+        .map(|&p| field.at(unit(p)))
+        .collect::<Vec<f64>>()];
     let one = TemplateSubject {
         sphere: subject.clone(),
         features: feats.clone(),
@@ -258,30 +295,48 @@ fn bad_input_is_refused_with_clear_errors() {
     // Wrong length.
     let mut short = feats.clone();
     short[0].pop();
-    let e = register(&subject, &short, &template, &opts).unwrap_err().to_string();
-    assert!(e.contains("feature map 1 (f0) has 641 values") && e.contains("642"), "{e}");
+    let e = register(&subject, &short, &template, &opts)
+        .unwrap_err()
+        .to_string();
+    assert!(
+        e.contains("feature map 1 (f0) has 641 values") && e.contains("642"),
+        "{e}"
+    );
     // Constant.
     let flat = vec![vec![2.5; subject.n_vertices()]];
-    let e = register(&subject, &flat, &template, &opts).unwrap_err().to_string();
+    let e = register(&subject, &flat, &template, &opts)
+        .unwrap_err()
+        .to_string();
     assert!(e.contains("constant"), "{e}");
     // Non-finite.
     let mut nan = feats.clone();
     nan[0][7] = f64::NAN;
-    let e = register(&subject, &nan, &template, &opts).unwrap_err().to_string();
+    let e = register(&subject, &nan, &template, &opts)
+        .unwrap_err()
+        .to_string();
     assert!(e.contains("vertex 7") && e.contains("finite"), "{e}");
     // Feature count.
     let two = vec![feats[0].clone(), feats[0].clone()];
-    let e = register(&subject, &two, &template, &opts).unwrap_err().to_string();
-    assert!(e.contains("2 feature maps given; the template has 1"), "{e}");
+    let e = register(&subject, &two, &template, &opts)
+        .unwrap_err()
+        .to_string();
+    assert!(
+        e.contains("2 feature maps given; the template has 1"),
+        "{e}"
+    );
     // A template whose maps do not fit its mesh.
     let mut bad = template.clone();
     bad.features[0].truncate(100);
-    let e = register(&subject, &feats, &bad, &opts).unwrap_err().to_string();
+    let e = register(&subject, &feats, &bad, &opts)
+        .unwrap_err()
+        .to_string();
     assert!(e.contains("expected 642 (icosphere level 3)"), "{e}");
     // Not a sphere.
     let mut lumpy = subject.clone();
     lumpy.positions[3] = scale(lumpy.positions[3], 1.5);
-    let e = register(&lumpy, &feats, &template, &opts).unwrap_err().to_string();
+    let e = register(&lumpy, &feats, &template, &opts)
+        .unwrap_err()
+        .to_string();
     assert!(e.contains("sphere not"), "{e}");
 }
 
@@ -300,7 +355,10 @@ fn template_folder_round_trip_and_another_mesh() {
     // Replace the sphere by another mesh: refused, naming the file.
     horosphere::io::gifti::write_mesh(&dir.join("sphere.surf.gii"), &icosphere(2, 1.0)).unwrap();
     let e = read_template(&dir).unwrap_err().to_string();
-    assert!(e.contains("sphere.surf.gii") && e.contains("expected the icosphere of level 3"), "{e}");
+    assert!(
+        e.contains("sphere.surf.gii") && e.contains("expected the icosphere of level 3"),
+        "{e}"
+    );
     let _ = std::fs::remove_dir_all(&dir);
 }
 
@@ -315,7 +373,10 @@ fn register_template_and_register_commands() {
     let _ = std::fs::remove_dir_all(&dir);
     std::fs::create_dir_all(&dir).unwrap();
     let mut rng = Rng::new(21);
-    let fields = [Field::random(&mut rng, 16, 8.0), Field::random(&mut rng, 16, 8.0)];
+    let fields = [
+        Field::random(&mut rng, 16, 8.0),
+        Field::random(&mut rng, 16, 8.0),
+    ];
     let warp = Warp {
         swirls: vec![(unit([0.1, 0.9, 0.3]), 0.2, 0.5)],
     };
@@ -334,9 +395,16 @@ fn register_template_and_register_commands() {
                     f.at(x) as f32
                 })
                 .collect();
-            write_shape(&dir.join(format!("s{s}-f{k}.shape.gii")), &vals, &MetaData::new()).unwrap();
+            write_shape(
+                &dir.join(format!("s{s}-f{k}.shape.gii")),
+                &vals,
+                &MetaData::new(),
+            )
+            .unwrap();
         }
-        table.push_str(&format!("s{s},s{s}.surf.gii,s{s}-f0.shape.gii,s{s}-f1.shape.gii\n"));
+        table.push_str(&format!(
+            "s{s},s{s}.surf.gii,s{s}-f0.shape.gii,s{s}-f1.shape.gii\n"
+        ));
     }
     std::fs::write(dir.join("cohort.csv"), &table).unwrap();
     let tdir = dir.join("tpl");
@@ -348,7 +416,11 @@ fn register_template_and_register_commands() {
         .args(["--level", "3", "--rounds", "1", "--json"])
         .output()
         .unwrap();
-    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
     let rep: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
     assert_eq!(rep["features"], serde_json::json!(["depth", "curv"]));
     let t = read_template(&tdir).unwrap();
@@ -371,7 +443,11 @@ fn register_template_and_register_commands() {
         .arg(&report)
         .output()
         .unwrap();
-    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
     let text = String::from_utf8_lossy(&out.stdout);
     assert!(text.contains("correlation depth"), "{text}");
     let r: serde_json::Value =
@@ -402,7 +478,10 @@ fn register_template_and_register_commands() {
         .unwrap();
     assert_eq!(out.status.code(), Some(1));
     let err = String::from_utf8_lossy(&out.stderr);
-    assert!(err.contains("short.shape.gii") && err.contains("642 values"), "{err}");
+    assert!(
+        err.contains("short.shape.gii") && err.contains("642 values"),
+        "{err}"
+    );
     assert!(!dir.join("never.surf.gii").exists());
     let _ = std::fs::remove_dir_all(&dir);
 }

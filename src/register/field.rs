@@ -268,11 +268,7 @@ mod tests {
         let w = [0.0, 0.0, 0.4];
         let v = VelocityField {
             level: 4,
-            vectors: grid
-                .level_points(4)
-                .iter()
-                .map(|p| cross(w, *p))
-                .collect(),
+            vectors: grid.level_points(4).iter().map(|p| cross(w, *p)).collect(),
         };
         let pts = [unit([1.0, 0.2, 0.3]), unit([0.3, -0.9, -0.2])];
         let n = v.steps(&grid);

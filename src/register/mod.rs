@@ -125,7 +125,11 @@ impl Default for RegisterOptions {
 /// 16, 8 and 4 degrees FWHM.
 pub fn default_stages(level: u32) -> Vec<Stage> {
     let top = level.saturating_sub(1).clamp(1, 5);
-    let levels = [top.saturating_sub(2).max(1), top.saturating_sub(1).max(1), top];
+    let levels = [
+        top.saturating_sub(2).max(1),
+        top.saturating_sub(1).max(1),
+        top,
+    ];
     let fwhm = [16.0, 8.0, 4.0];
     let iters = [40, 40, 30];
     (0..3)
@@ -223,9 +227,9 @@ pub fn check_features(features: &[Vec<f64>], n: usize, names: &[String]) -> Resu
                 f[i]
             )));
         }
-        let (lo, hi) = f
-            .iter()
-            .fold((f64::INFINITY, f64::NEG_INFINITY), |a, &x| (a.0.min(x), a.1.max(x)));
+        let (lo, hi) = f.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |a, &x| {
+            (a.0.min(x), a.1.max(x))
+        });
         if hi - lo <= 1e-12 * (1.0 + lo.abs().max(hi.abs())) {
             return Err(Error::Invalid(format!(
                 "feature map {} ({name}) is constant ({lo}); expected a map that varies over the sphere",
@@ -248,7 +252,7 @@ pub fn zscore(f: &[f64], w: &[f64]) -> Option<Vec<f64>> {
         .sum::<f64>()
         / sw;
     let sd = var.sqrt();
-    if !(sd > 1e-12 * (1.0 + mean.abs())) {
+    if sd.is_nan() || sd <= 1e-12 * (1.0 + mean.abs()) {
         return None;
     }
     Some(f.iter().map(|x| (x - mean) / sd).collect())
@@ -305,7 +309,11 @@ pub fn sample_subject(
         let s: Vec<f64> = loc
             .points
             .iter()
-            .map(|l| (0..3).map(|j| l.weights[j] * f[l.vertices[j] as usize]).sum())
+            .map(|l| {
+                (0..3)
+                    .map(|j| l.weights[j] * f[l.vertices[j] as usize])
+                    .sum()
+            })
             .collect();
         let z = zscore(&s, &areas).ok_or_else(|| {
             Error::Invalid(format!(
@@ -430,7 +438,11 @@ fn pull_back(grid: &IcoGrid, maps: &[Vec<f64>], phi: &[Vec3]) -> Vec<Vec<f64>> {
     maps.iter()
         .map(|m| {
             hits.iter()
-                .map(|h| (0..3).map(|j| h.weights[j] * m[h.vertices[j] as usize]).sum())
+                .map(|h| {
+                    (0..3)
+                        .map(|j| h.weights[j] * m[h.vertices[j] as usize])
+                        .sum()
+                })
                 .collect()
         })
         .collect()
@@ -567,7 +579,7 @@ pub fn register_sampled(
             let phi_new = v_new.flow(grid, x, 1.0, steps_new);
             let w_new = pull_back(grid, &s_s, &phi_new);
             let e_new = residual(&t_s, &w_new, &areas);
-            if !(e_new < e) {
+            if e_new.is_nan() || e_new >= e {
                 break;
             }
             let gain = (e - e_new) / e;

@@ -358,8 +358,13 @@ pub fn write_template(dir: &Path, template: &Template) -> Result<()> {
 pub fn read_template(dir: &Path) -> Result<Template> {
     let path = dir.join("template.json");
     let text = std::fs::read_to_string(&path).map_err(|e| Error::io(&path, e))?;
-    let desc: TemplateDescription = serde_json::from_str(&text)
-        .map_err(|e| Error::bad_file(&path, "JSON", format!("{e}; expected a template description")))?;
+    let desc: TemplateDescription = serde_json::from_str(&text).map_err(|e| {
+        Error::bad_file(
+            &path,
+            "JSON",
+            format!("{e}; expected a template description"),
+        )
+    })?;
     if desc.kind != TEMPLATE_KIND {
         return Err(Error::bad_file(
             &path,
@@ -393,9 +398,12 @@ pub fn read_template(dir: &Path) -> Result<Template> {
             ),
         ));
     }
-    if let Some(i) = sphere.positions.iter().zip(&want.positions).position(|(a, b)| {
-        (0..3).any(|d| (a[d] - b[d]).abs() > 1e-5)
-    }) {
+    if let Some(i) = sphere
+        .positions
+        .iter()
+        .zip(&want.positions)
+        .position(|(a, b)| (0..3).any(|d| (a[d] - b[d]).abs() > 1e-5))
+    {
         return Err(Error::bad_file(
             &spath,
             format!("vertex {i}"),
