@@ -486,6 +486,29 @@ fn register_template_and_register_commands() {
         "{err}"
     );
     assert!(!dir.join("never.surf.gii").exists());
+    // A constant feature file: the error names it.
+    let flat = dir.join("flat.shape.gii");
+    write_shape(&flat, &vec![0.5f32; 2562], &MetaData::new()).unwrap();
+    let out = Command::new(bin)
+        .arg("register")
+        .arg(dir.join("s1.surf.gii"))
+        .arg("--features")
+        .arg(&flat)
+        .arg("--features")
+        .arg(dir.join("s1-f1.shape.gii"))
+        .arg("--template")
+        .arg(&tdir)
+        .arg("-o")
+        .arg(dir.join("never.surf.gii"))
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(1));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        err.contains("flat.shape.gii") && err.contains("constant"),
+        "{err}"
+    );
+    assert!(!dir.join("never.surf.gii").exists());
     let _ = std::fs::remove_dir_all(&dir);
 }
 
@@ -594,7 +617,12 @@ fn planted_effect_sensitivity_with_and_without_registration() {
             sphere,
             features: vec![h.depth.iter().map(|&d| f64::from(d)).collect()],
         });
-        thick.push(h.thickness.iter().map(|&t| f64::from(t)).collect::<Vec<f64>>());
+        thick.push(
+            h.thickness
+                .iter()
+                .map(|&t| f64::from(t))
+                .collect::<Vec<f64>>(),
+        );
         groups.push(s.participant.group);
     }
     let level = 4;
@@ -614,11 +642,21 @@ fn planted_effect_sensitivity_with_and_without_registration() {
                 .unwrap()
                 .points
                 .iter()
-                .map(|l| (0..3).map(|j| l.weights[j] * t[l.vertices[j] as usize]).sum())
+                .map(|l| {
+                    (0..3)
+                        .map(|j| l.weights[j] * t[l.vertices[j] as usize])
+                        .sum()
+                })
                 .collect()
         };
         base.push(sample(&grid.points));
-        let r = register(&s.sphere, &s.features, &template, &RegisterOptions::default()).unwrap();
+        let r = register(
+            &s.sphere,
+            &s.features,
+            &template,
+            &RegisterOptions::default(),
+        )
+        .unwrap();
         reg.push(sample(&r.correspondence));
     }
     let split = |maps: &[Vec<f64>]| {

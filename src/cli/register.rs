@@ -138,6 +138,15 @@ fn load(sphere: &Path, features: &[PathBuf]) -> Result<TemplateSubject> {
             ));
         }
     }
+    // Name the file of a non-finite or constant map.
+    for (p, m) in features.iter().zip(&maps) {
+        let name = p.file_name().map_or_else(
+            || p.display().to_string(),
+            |n| n.to_string_lossy().into_owned(),
+        );
+        horosphere::register::check_features(std::slice::from_ref(m), m.len(), &[name])
+            .map_err(|e| e.in_file(p, "DataArray 0"))?;
+    }
     Ok(TemplateSubject {
         sphere: mesh,
         features: maps,

@@ -219,7 +219,7 @@ pub struct JacobianSummary {
     pub folded: usize,
     /// `folded` over the number of triangles.
     pub fraction_folded: f64,
-    /// Number of triangles.
+    /// Number of triangles measured (those of non-zero area before).
     pub triangles: usize,
 }
 
@@ -234,17 +234,13 @@ pub fn jacobian(faces: &[[u32; 3]], before: &[Vec3], after: &[Vec3]) -> Jacobian
         let s = dot(n, centroid);
         0.5 * norm(n) * s.signum()
     };
+    // Triangles of zero area before the warp have no ratio and are left out.
     let ratios: Vec<f64> = faces
         .par_iter()
         .with_min_len(1024)
-        .map(|t| {
+        .filter_map(|t| {
             let a0 = signed(before, t);
-            let a1 = signed(after, t);
-            if a0 != 0.0 {
-                a1 / a0
-            } else {
-                0.0
-            }
+            (a0 != 0.0).then(|| signed(after, t) / a0)
         })
         .collect();
     let folded = ratios.iter().filter(|&&r| r <= 0.0).count();

@@ -28,7 +28,7 @@ use super::{register_sampled, sample_subject, zscore, RegisterOptions, RegisterR
 use crate::error::{Error, Result};
 use crate::io::gifti::{self, MetaData};
 use crate::mesh::shapes::icosphere;
-use crate::mesh::TriMesh;
+use crate::mesh::{dot, TriMesh};
 use serde::{Deserialize, Serialize};
 use std::path::Path;
 
@@ -114,8 +114,11 @@ pub struct RoundReport {
     /// Mean over subjects and features of the correlation with the
     /// previous template after registration.
     pub mean_correlation: f64,
-    /// Largest speed of the mean velocity field removed (degrees).
-    pub mean_warp_deg: f64,
+    /// Root-mean-square speed over the control vertices of the mean
+    /// velocity field removed by the recentring (degrees).
+    pub mean_warp_rms_deg: f64,
+    /// Its largest speed (degrees).
+    pub mean_warp_max_deg: f64,
 }
 
 /// Report of [`build_template`] (serde).
@@ -240,31 +243,36 @@ pub fn build_template(
         let avg = average(opts.level, &warped.iter().collect::<Vec<_>>(), nf, &areas);
         // Recentre: move the average by exp(-vbar).
         let refs: Vec<&VelocityField> = fields.iter().collect();
-        let (recentred, mean_warp_deg) = match VelocityField::mean(&grid, &refs) {
-            Some(vbar) if vbar.max_speed() > 0.0 => {
-                let steps = vbar.steps(&grid);
-                let moved = vbar.flow(&grid, &grid.points, -1.0, steps);
-                let maps: Vec<Vec<f64>> = avg
-                    .iter()
-                    .map(|m| {
-                        let r: Vec<f64> = moved
-                            .iter()
-                            .map(|&p| grid.interpolate(m, opts.level, p))
-                            .collect();
-                        zscore(&r, &areas).unwrap_or(r)
-                    })
-                    .collect();
-                (maps, vbar.max_speed().to_degrees())
-            }
-            _ => (avg, 0.0),
-        };
+        let (recentred, mean_warp_rms_deg, mean_warp_max_deg) =
+            match VelocityField::mean(&grid, &refs) {
+                Some(vbar) if vbar.max_speed() > 0.0 => {
+                    let steps = vbar.steps(&grid);
+                    let moved = vbar.flow(&grid, &grid.points, -1.0, steps);
+                    let maps: Vec<Vec<f64>> = avg
+                        .iter()
+                        .map(|m| {
+                            let r: Vec<f64> = moved
+                                .iter()
+                                .map(|&p| grid.interpolate(m, opts.level, p))
+                                .collect();
+                            zscore(&r, &areas).unwrap_or(r)
+                        })
+                        .collect();
+                    let rms = (vbar.vectors.iter().map(|v| dot(*v, *v)).sum::<f64>()
+                        / vbar.vectors.len() as f64)
+                        .sqrt();
+                    (maps, rms.to_degrees(), vbar.max_speed().to_degrees())
+                }
+                _ => (avg, 0.0, 0.0),
+            };
         let change = rms_change(&recentred, &template.features);
         template.features = recentred;
         rounds.push(RoundReport {
             round,
             change,
             mean_correlation: mean_corr,
-            mean_warp_deg,
+            mean_warp_rms_deg,
+            mean_warp_max_deg,
         });
         last_reports = reports;
         if change < opts.tolerance {
