@@ -155,6 +155,12 @@ fn load(sphere: &Path, features: &[PathBuf]) -> Result<TemplateSubject> {
 
 /// Run `horosphere register`.
 pub fn run_register(args: &RegisterArgs) -> Result<ExitCode> {
+    if horosphere::io::MeshFormat::from_extension(&args.output).is_none() {
+        return Err(Error::Invalid(format!(
+            "{}: cannot tell the mesh format from the file name; expected an extension .surf.gii, .gii, .obj, .ply or .off",
+            args.output.display()
+        )));
+    }
     let template = read_template(&args.template)?;
     let subject = load(&args.sphere, &args.features)?;
     let reg = register(
