@@ -18,6 +18,7 @@ pub mod io;
 pub mod map;
 pub mod mesh;
 pub mod moebius;
+pub mod register;
 pub mod repair;
 pub mod report;
 pub mod resample;

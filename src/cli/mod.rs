@@ -12,6 +12,7 @@ mod demo;
 mod inspect;
 mod map;
 mod matrix;
+mod register;
 mod repair;
 mod report;
 mod resample;
@@ -47,6 +48,10 @@ enum Command {
     Align(align::AlignArgs),
     /// Estimate a landmark template from a cohort of mapped spheres.
     Template(align::TemplateArgs),
+    /// Warp a subject sphere so that its folding features line up with a feature template.
+    Register(register::RegisterArgs),
+    /// Build a feature template for `register` from a cohort table.
+    RegisterTemplate(register::RegisterTemplateArgs),
     /// Resample per-vertex maps from a subject sphere to a common target sphere.
     Resample(resample::ResampleArgs),
     /// Write a built-in target sphere (icosphere:K) as a surface file.
@@ -71,6 +76,8 @@ pub fn main() -> ExitCode {
         Command::Map(args) => map::run(args),
         Command::Align(args) => align::run_align(args),
         Command::Template(args) => align::run_template(args),
+        Command::Register(args) => register::run_register(args),
+        Command::RegisterTemplate(args) => register::run_template(args),
         Command::Resample(args) => resample::run(args),
         Command::Sphere(args) => sphere::run(args),
         Command::Matrix(args) => matrix::run(args),
