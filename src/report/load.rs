@@ -309,8 +309,9 @@ pub fn load_geometry(
         }
         (n, _) => n,
     };
-    // Colouring map: the study's input map when it fits vertex for vertex,
-    // else the resampled map carried back from the common sphere.
+    // Colouring map: the study's input map when the surface is the input
+    // itself (repair renumbers vertices, and the renumbering is not
+    // stored), else the resampled map carried back from the common sphere.
     let nv = sphere.as_ref().map(|s| s.n_vertices());
     let maps: Vec<String> = r
         .options
@@ -323,7 +324,10 @@ pub fn load_geometry(
                 .collect()
         })
         .unwrap_or_default();
-    if let (Some(k), Some(s), Some(nv)) = (maps.iter().position(|m| m == map), study, nv) {
+    let unrepaired = r.outputs.iter().all(|o| o.role != "repaired-surface");
+    if let (Some(k), Some(s), Some(nv), true) =
+        (maps.iter().position(|m| m == map), study, nv, unrepaired)
+    {
         if let Some(f) = r.inputs.get(1 + k) {
             if let Ok(v) = read_values(&s.join(&f.path)) {
                 if v.len() == nv {
