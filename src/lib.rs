@@ -22,6 +22,7 @@ pub mod repair;
 pub mod resample;
 pub mod stats;
 pub mod synth;
+pub mod volume;
 
 pub use error::{Error, Result};
 pub use mesh::TriMesh;
