@@ -256,3 +256,427 @@ fn random_4x4x4_volumes_are_closed_manifolds() {
         check_bits([4, 4, 4], &fg);
     }
 }
+
+/// A volume on an `n^3` grid with `affine`, values `f(mm position)`.
+fn field_volume(n: usize, affine: Affine, f: impl Fn([f64; 3]) -> f64) -> Volume {
+    let mut values = Vec::with_capacity(n * n * n);
+    for k in 0..n {
+        for j in 0..n {
+            for i in 0..n {
+                values.push(f(affine.apply([i as f64, j as f64, k as f64])));
+            }
+        }
+    }
+    Volume {
+        dims: [n, n, n],
+        values,
+        affine,
+        affine_source: AffineSource::Sform,
+        space: "NIFTI_XFORM_SCANNER_ANAT".into(),
+    }
+}
+
+/// An oblique affine with spacing `h` mm: a rotation about (1, 2, 2)/3 by
+/// 0.3 rad, the x axis reversed when `mirror` (negative determinant).
+fn oblique(h: f64, mirror: bool, offset: [f64; 3]) -> Affine {
+    let (ax, th) = ([1.0 / 3.0, 2.0 / 3.0, 2.0 / 3.0], 0.3f64);
+    let (c, s) = (th.cos(), th.sin());
+    let mut m = [[0.0; 4]; 3];
+    for r in 0..3 {
+        for col in 0..3 {
+            let k = [
+                [0.0, -ax[2], ax[1]],
+                [ax[2], 0.0, -ax[0]],
+                [-ax[1], ax[0], 0.0],
+            ];
+            let id = if r == col { 1.0 } else { 0.0 };
+            let rot = c * id + s * k[r][col] + (1.0 - c) * ax[r] * ax[col];
+            let sign = if mirror && col == 0 { -1.0 } else { 1.0 };
+            m[r][col] = rot * h * sign;
+        }
+        m[r][3] = offset[r];
+    }
+    Affine { m }
+}
+
+/// Voxelised ball of radius `r_vox` voxels (centre of a 2r+5 grid) in mm.
+fn ball(r_vox: f64, h: f64, mirror: bool, smooth_field: bool) -> (Volume, [f64; 3], f64) {
+    let n = (2.0 * r_vox).ceil() as usize + 5;
+    let c = (n - 1) as f64 / 2.0 + 0.137; // off-grid centre
+    let a0 = oblique(h, mirror, [-40.0, 12.5, 7.0]);
+    let centre = a0.apply([c, c + 0.071, c - 0.043]);
+    let r = r_vox * h;
+    let v = field_volume(n, a0, |p| {
+        let d =
+            ((p[0] - centre[0]).powi(2) + (p[1] - centre[1]).powi(2) + (p[2] - centre[2]).powi(2))
+                .sqrt();
+        if smooth_field {
+            (r - d) / h
+        } else if d <= r {
+            1.0
+        } else {
+            0.0
+        }
+    });
+    (v, centre, r)
+}
+
+#[test]
+fn binary_ball_area_and_volume_within_voxel_tolerance() {
+    for &mirror in &[false, true] {
+        let (v, _, r) = ball(10.0, 0.8, mirror, false);
+        let (mesh, rep) = extract(&v, &ExtractOptions::default()).expect("extract");
+        let (chi, comps) = check_closed_manifold(&mesh.positions, &mesh.faces);
+        assert_eq!((chi, comps), (2, 1));
+        assert_eq!(rep.flipped_for_negative_determinant, mirror);
+        let (a_true, v_true) = (
+            4.0 * std::f64::consts::PI * r * r,
+            4.0 / 3.0 * std::f64::consts::PI * r.powi(3),
+        );
+        let h = 0.8;
+        // Vertices are midpoints between a centre inside (distance <= R)
+        // and one outside (> R) h apart, so they lie within h/2 of the
+        // sphere: |V - V_true| <= 4 pi R^2 h / 2 (first order) = 1.5 h/R
+        // relative.
+        let vol = mesh.signed_volume();
+        assert!(
+            (vol - v_true).abs() <= 1.5 * h / r * v_true,
+            "volume {vol} vs {v_true}"
+        );
+        // Area of a digitised sphere by binary marching cubes: within 10%
+        // (the facets of a binary surface tilt by up to ~35 degrees from
+        // the true normal; measured +7.8% here, and
+        // scikit-image agrees, see tests/reference/test_volume_nibabel.py).
+        let area = mesh.area();
+        assert!(
+            (area - a_true).abs() <= 0.10 * a_true,
+            "area {area} vs {a_true}"
+        );
+        eprintln!(
+            "binary ball mirror={mirror}: area/true {:.4}, volume/true {:.4}",
+            area / a_true,
+            vol / v_true
+        );
+    }
+}
+
+#[test]
+fn smooth_ball_area_and_volume_second_order() {
+    let (v, centre, r) = ball(10.0, 0.8, true, true);
+    let opts = ExtractOptions {
+        level: 0.0,
+        smooth_iterations: 0,
+    };
+    let (mesh, _) = extract(&v, &opts).expect("extract");
+    let (chi, _) = check_closed_manifold(&mesh.positions, &mesh.faces);
+    assert_eq!(chi, 2);
+    let (a_true, v_true) = (
+        4.0 * std::f64::consts::PI * r * r,
+        4.0 / 3.0 * std::f64::consts::PI * r.powi(3),
+    );
+    // A signed-distance field interpolated linearly: vertices on the sphere
+    // up to O(h^2 / R); flat triangles with edges up to sqrt(2) h cut below
+    // the sphere by at most (sqrt(2) h)^2 / (8 R)... relative (h/R)^2 bound.
+    let h = 0.8;
+    let tol = (h / r).powi(2);
+    let (area, vol) = (mesh.area(), mesh.signed_volume());
+    assert!(
+        (area / a_true - 1.0).abs() <= tol,
+        "area {area} vs {a_true}"
+    );
+    assert!(
+        (vol / v_true - 1.0).abs() <= tol,
+        "volume {vol} vs {v_true}"
+    );
+    for p in &mesh.positions {
+        let d =
+            ((p[0] - centre[0]).powi(2) + (p[1] - centre[1]).powi(2) + (p[2] - centre[2]).powi(2))
+                .sqrt();
+        assert!(
+            (d - r).abs() <= h * h / r,
+            "vertex at distance {d}, R = {r}"
+        );
+    }
+    eprintln!(
+        "smooth ball: area/true {:.5}, volume/true {:.5}",
+        area / a_true,
+        vol / v_true
+    );
+}
+
+#[test]
+fn taubin_smoothing_keeps_closed_ball_and_volume() {
+    let (v, _, r) = ball(8.0, 1.0, false, false);
+    let (raw, _) = extract(&v, &ExtractOptions::default()).expect("extract");
+    let opts = ExtractOptions {
+        level: 0.5,
+        smooth_iterations: 10,
+    };
+    let (m, rep) = extract(&v, &opts).expect("extract");
+    assert_eq!(rep.smooth_iterations, 10);
+    assert_eq!(m.faces, raw.faces);
+    let (chi, _) = check_closed_manifold(&m.positions, &m.faces);
+    assert_eq!(chi, 2);
+    let a_true = 4.0 * std::f64::consts::PI * r * r;
+    // Smoothing removes the staircase: the area comes closer to the sphere's,
+    // and the lambda|mu pair keeps the volume within 2%.
+    assert!((m.area() - a_true).abs() < (raw.area() - a_true).abs());
+    assert!((m.signed_volume() / raw.signed_volume() - 1.0).abs() < 0.02);
+    // Plain Laplacian smoothing (mu = 0 stand-in: lambda twice) shrinks more.
+    let mut lap = raw.clone();
+    smooth::taubin(&mut lap, 10, 0.5, 0.5);
+    assert!(lap.signed_volume() < 0.95 * raw.signed_volume());
+}
+
+#[test]
+fn cavities_are_filled_and_the_largest_piece_kept() {
+    // A hollow cube shell (7^3 with a 3^3 hole), a separate 2-voxel piece,
+    // in a 14 x 9 x 9 grid.
+    let dims = [14usize, 9, 9];
+    let mut vals = vec![0.0; dims[0] * dims[1] * dims[2]];
+    let idx = |i: usize, j: usize, k: usize| i + dims[0] * (j + dims[1] * k);
+    for k in 1..8 {
+        for j in 1..8 {
+            for i in 1..8 {
+                let hole = (3..6).contains(&i) && (3..6).contains(&j) && (3..6).contains(&k);
+                if !hole {
+                    vals[idx(i, j, k)] = 1.0;
+                }
+            }
+        }
+    }
+    vals[idx(11, 4, 4)] = 1.0;
+    vals[idx(12, 4, 4)] = 1.0;
+    // A voxel touching the shell only along an edge (18-adjacent): its own
+    // 6-connected piece, dropped.
+    vals[idx(8, 8, 4)] = 1.0;
+    let (solid, rep) = solidify(&vals, dims, 0.5).expect("solidify");
+    assert_eq!(rep.cavity_voxels_filled, 27);
+    assert_eq!(rep.cavities_filled, 1);
+    assert_eq!(rep.pieces, 3);
+    assert_eq!(rep.kept_voxels, 343);
+    assert_eq!(rep.dropped_voxels, 3);
+    let (pos, faces) = march(&solid, None);
+    let (chi, comps) = check_closed_manifold(&pos, &faces);
+    assert_eq!((chi, comps), (2, 1));
+    // The solid 7^3 cube: a binary-cube surface with volume 7^3 minus the
+    // cut corners and edges (midpoint surface): between 6^3 and 7^3.
+    let m = TriMesh {
+        positions: pos,
+        faces,
+    };
+    assert!(m.signed_volume() > 216.0 && m.signed_volume() < 343.0);
+    // A diagonal cavity pair: background voxels 18-adjacent to the outside
+    // through an edge are not a cavity.
+    let mut v2 = vec![1.0; 27];
+    v2[0] = 0.0; // corner voxel: on the border, not a cavity
+    let (_, r2) = solidify(&v2, [3, 3, 3], 0.5).expect("solidify");
+    assert_eq!(r2.cavity_voxels_filled, 0);
+}
+
+#[test]
+fn ring_keeps_its_handle() {
+    // A square ring of voxels (a digital torus): genus 1, chi 0.
+    let dims = [5usize, 5, 1];
+    let mut fg = vec![true; 25];
+    fg[12] = false;
+    let vals: Vec<f64> = fg.iter().map(|&b| f64::from(u8::from(b))).collect();
+    let (solid, rep) = solidify(&vals, dims, 0.5).expect("solidify");
+    assert_eq!(
+        rep.cavity_voxels_filled, 0,
+        "the hole is open to the border"
+    );
+    let (pos, faces) = march(&solid, None);
+    let (chi, comps) = check_closed_manifold(&pos, &faces);
+    assert_eq!((chi, comps), (0, 1));
+}
+
+#[test]
+fn bad_masks_are_refused() {
+    let e = solidify(&[0.0; 8], [2, 2, 2], 0.5).unwrap_err().to_string();
+    assert!(e.contains("empty"), "{e}");
+    let mut v = vec![1.0; 8];
+    v[5] = f64::NAN;
+    let e = solidify(&v, [2, 2, 2], 0.5).unwrap_err().to_string();
+    assert!(e.contains("(1, 0, 1)") && e.contains("NaN"), "{e}");
+    let e = solidify(&[1.0; 8], [2, 2, 2], f64::NAN)
+        .unwrap_err()
+        .to_string();
+    assert!(e.contains("level"), "{e}");
+}
+
+#[test]
+fn output_is_the_same_for_any_thread_count() {
+    let (v, _, _) = ball(6.0, 1.0, false, true);
+    let opts = ExtractOptions {
+        level: 0.0,
+        smooth_iterations: 2,
+    };
+    let one = rayon::ThreadPoolBuilder::new()
+        .num_threads(1)
+        .build()
+        .expect("pool");
+    let three = rayon::ThreadPoolBuilder::new()
+        .num_threads(3)
+        .build()
+        .expect("pool");
+    let (a, _) = one.install(|| extract(&v, &opts)).expect("extract");
+    let (b, _) = three.install(|| extract(&v, &opts)).expect("extract");
+    assert_eq!(a, b);
+}
+
+/// Header fields with only the sform set.
+fn sform_fields(m: [[f64; 4]; 3]) -> XformFields {
+    XformFields {
+        pixdim: [1.0, 1.0, 1.0, 1.0],
+        qform_code: 0,
+        sform_code: 1,
+        quatern: [0.0; 3],
+        qoffset: [0.0; 3],
+        srow: m,
+    }
+}
+
+#[test]
+fn affine_rule_sform_then_qform_then_pixdim() {
+    let a = oblique(1.3, true, [1.0, -2.0, 3.0]);
+    let (got, src) = Affine::from_header(&sform_fields(a.m)).expect("sform");
+    assert_eq!((got, src), (a, AffineSource::Sform));
+    // qform: a rotation of pi/2 about z (quaternion (cos 45, 0, 0, sin 45)),
+    // spacings 2, 3, 4, qfac -1, offset (10, 20, 30):
+    // i -> (0, 2, 0), j -> (-3, 0, 0), k -> (0, 0, -4).
+    let s = std::f64::consts::FRAC_1_SQRT_2;
+    let q = XformFields {
+        pixdim: [-1.0, 2.0, 3.0, 4.0],
+        qform_code: 1,
+        sform_code: 0,
+        quatern: [0.0, 0.0, s],
+        qoffset: [10.0, 20.0, 30.0],
+        srow: [[0.0; 4]; 3],
+    };
+    let (got, src) = Affine::from_header(&q).expect("qform");
+    assert_eq!(src, AffineSource::Qform);
+    let want = [
+        [0.0, -3.0, 0.0, 10.0],
+        [2.0, 0.0, 0.0, 20.0],
+        [0.0, 0.0, -4.0, 30.0],
+    ];
+    for r in 0..3 {
+        for c in 0..4 {
+            assert!((got.m[r][c] - want[r][c]).abs() < 1e-12, "{:?}", got.m);
+        }
+    }
+    let p = XformFields { qform_code: 0, ..q };
+    let (got, src) = Affine::from_header(&p).expect("pixdim");
+    assert_eq!(
+        (got, src),
+        (Affine::scaling([2.0, 3.0, 4.0]), AffineSource::Pixdim)
+    );
+    // Inverse.
+    let inv = a.inverse();
+    let x = [3.5, -1.25, 7.0];
+    let back = inv.apply(a.apply(x));
+    for k in 0..3 {
+        assert!((back[k] - x[k]).abs() < 1e-12);
+    }
+}
+
+#[test]
+fn singular_and_bad_affines_are_refused() {
+    let mut m = [
+        [1.0, 0.0, 0.0, 0.0],
+        [0.0, 1.0, 0.0, 0.0],
+        [1.0, 0.0, 0.0, 0.0],
+    ];
+    let e = Affine::from_header(&sform_fields(m))
+        .unwrap_err()
+        .to_string();
+    assert!(e.contains("singular"), "{e}");
+    m[2] = [0.0, 0.0, f64::NAN, 0.0];
+    let e = Affine::from_header(&sform_fields(m))
+        .unwrap_err()
+        .to_string();
+    assert!(e.contains("non-finite"), "{e}");
+    let f = XformFields {
+        pixdim: [1.0, 1.0, 0.0, 1.0],
+        qform_code: 0,
+        sform_code: 0,
+        quatern: [0.0; 3],
+        qoffset: [0.0; 3],
+        srow: [[0.0; 4]; 3],
+    };
+    let e = Affine::from_header(&f).unwrap_err().to_string();
+    assert!(e.contains("pixdim"), "{e}");
+}
+
+#[test]
+fn sampling_a_linear_function_is_exact() {
+    let a = oblique(1.7, true, [5.0, -3.0, 11.0]);
+    let lin = |p: [f64; 3]| 2.5 * p[0] - 1.25 * p[1] + 0.5 * p[2] + 7.0;
+    let v = field_volume(9, a, lin);
+    // Points anywhere inside the grid of voxel centres, including faces.
+    let mut s: u64 = 42;
+    let mut rnd = move || {
+        s = s
+            .wrapping_mul(6364136223846793005)
+            .wrapping_add(1442695040888963407);
+        (s >> 11) as f64 / (1u64 << 53) as f64
+    };
+    let mut pos = Vec::new();
+    for _ in 0..200 {
+        pos.push(a.apply([8.0 * rnd(), 8.0 * rnd(), 8.0 * rnd()]));
+    }
+    pos.push(a.apply([0.0, 0.0, 0.0]));
+    pos.push(a.apply([8.0, 8.0, 8.0]));
+    pos.push(a.apply([8.0, 3.3, 0.0]));
+    pos.push(a.apply([8.7, 3.3, 0.0])); // outside
+    let n = pos.len();
+    let mesh = TriMesh {
+        positions: pos.clone(),
+        faces: vec![[0, 1, 2]],
+    };
+    let got = sample(&v, &mesh, 0.0, Method::Trilinear);
+    assert_eq!(got.outside, 1);
+    assert!(got.values[n - 1].is_nan());
+    for (p, g) in pos.iter().zip(&got.values).take(n - 1) {
+        let want = lin(*p);
+        assert!(
+            (g - want).abs() <= 1e-12 * (1.0 + want.abs()) * 100.0,
+            "{g} vs {want}"
+        );
+    }
+    // Nearest: the value at the nearest voxel centre.
+    let near = sample(&v, &mesh, 0.0, Method::Nearest);
+    assert_eq!(near.outside, 1, "8.7 rounds to 9, outside");
+    let w = nearest(&v, [2.4, 2.6, 0.49]).expect("inside");
+    assert!((w - lin(a.apply([2.0, 3.0, 0.0]))).abs() < 1e-9);
+    assert!(trilinear(&v, [-0.1, 0.0, 0.0]).is_none());
+    assert!(nearest(&v, [-0.6, 0.0, 0.0]).is_none());
+}
+
+#[test]
+fn sampling_along_normals_reaches_the_offset_surface() {
+    // Values = distance from a centre; the extracted ball surface sampled
+    // 1.5 mm out gives R + 1.5 (to the interpolation error of the sphere).
+    let (v, centre, r) = ball(8.0, 1.0, true, true);
+    let dist = field_volume(v.dims[0], v.affine, |p| {
+        ((p[0] - centre[0]).powi(2) + (p[1] - centre[1]).powi(2) + (p[2] - centre[2]).powi(2))
+            .sqrt()
+    });
+    let (mesh, _) = extract(
+        &v,
+        &ExtractOptions {
+            level: 0.0,
+            smooth_iterations: 0,
+        },
+    )
+    .expect("extract");
+    let out = sample(&dist, &mesh, 1.5, Method::Trilinear);
+    assert_eq!(out.outside, 0);
+    let mean = out.values.iter().sum::<f64>() / out.values.len() as f64;
+    assert!(
+        (mean - (r + 1.5)).abs() < 0.05,
+        "mean {mean}, want {}",
+        r + 1.5
+    );
+}
