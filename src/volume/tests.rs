@@ -680,3 +680,93 @@ fn sampling_along_normals_reaches_the_offset_surface() {
         r + 1.5
     );
 }
+
+/// A scratch file path unique to this test process.
+fn scratch(name: &str) -> std::path::PathBuf {
+    let d = std::env::temp_dir().join(format!("horosphere-volume-{}", std::process::id()));
+    std::fs::create_dir_all(&d).expect("scratch dir");
+    d.join(name)
+}
+
+#[test]
+fn nifti_round_trip_and_refusals() {
+    use super::nifti::{encode_nifti1, read_volume, StoreType};
+    let a = oblique(1.5, true, [3.0, 4.0, 5.0]);
+    let dims = [3usize, 4, 5];
+    let vals: Vec<f64> = (0..60).map(|i| i as f64 * 0.5 - 7.0).collect();
+    for (store, name) in [(StoreType::F64, "f64.nii"), (StoreType::F32, "f32.nii"), (StoreType::I16, "i16.nii")] {
+        let p = scratch(name);
+        let mut v = vals.clone();
+        if store == StoreType::I16 {
+            v.iter_mut().for_each(|x| *x = x.round());
+        }
+        std::fs::write(&p, encode_nifti1(&dims, &v, &a, store)).expect("write");
+        let got = read_volume(&p).expect("read");
+        assert_eq!(got.dims, dims);
+        assert_eq!(got.values, v, "{name}");
+        assert_eq!(got.affine_source, AffineSource::Sform);
+        assert_eq!(got.space, "NIFTI_XFORM_SCANNER_ANAT");
+        for r in 0..3 {
+            for c in 0..4 {
+                assert_eq!(got.affine.m[r][c], f64::from(a.m[r][c] as f32));
+            }
+        }
+    }
+    // Gzip: the same volume read back.
+    let raw = encode_nifti1(&dims, &vals, &a, StoreType::F64);
+    let gz = scratch("f64.nii.gz");
+    let mut enc = flate2::write::GzEncoder::new(Vec::new(), flate2::Compression::fast());
+    std::io::Write::write_all(&mut enc, &raw).expect("gzip");
+    std::fs::write(&gz, enc.finish().expect("gzip")).expect("write");
+    assert_eq!(read_volume(&gz).expect("read gz").values, vals);
+    // One volume in a 4-D file: accepted; two: refused.
+    let p = scratch("one4d.nii");
+    std::fs::write(&p, encode_nifti1(&[3, 4, 5, 1], &vals, &a, StoreType::F32)).expect("write");
+    assert_eq!(read_volume(&p).expect("4-D, one volume").dims, dims);
+    let p = scratch("two4d.nii");
+    let two: Vec<f64> = vals.iter().chain(&vals).copied().collect();
+    std::fs::write(&p, encode_nifti1(&[3, 4, 5, 2], &two, &a, StoreType::F32)).expect("write");
+    let e = read_volume(&p).unwrap_err().to_string();
+    assert!(e.contains("two4d.nii") && e.contains("header dim") && e.contains("3-D"), "{e}");
+    // 2-D: refused.
+    let p = scratch("flat.nii");
+    std::fs::write(&p, encode_nifti1(&[3, 4], &vals[..12], &a, StoreType::F32)).expect("write");
+    let e = read_volume(&p).unwrap_err().to_string();
+    assert!(e.contains("2 dimensions"), "{e}");
+    // Complex data (datatype 32, 8 bytes per voxel): refused.
+    let mut bytes = encode_nifti1(&dims, &vals, &a, StoreType::F64);
+    bytes[70..72].copy_from_slice(&32i16.to_le_bytes());
+    let p = scratch("complex.nii");
+    std::fs::write(&p, &bytes).expect("write");
+    let e = read_volume(&p).unwrap_err().to_string();
+    assert!(e.contains("header datatype") && e.contains("not supported"), "{e}");
+    // Truncated data: refused by the reader.
+    let bytes = encode_nifti1(&dims, &vals, &a, StoreType::F64);
+    let p = scratch("short.nii");
+    std::fs::write(&p, &bytes[..bytes.len() - 16]).expect("write");
+    let e = read_volume(&p).unwrap_err().to_string();
+    assert!(e.contains("short.nii"), "{e}");
+    // Singular sform.
+    let sing = Affine { m: [[1.0, 0.0, 0.0, 0.0], [2.0, 0.0, 0.0, 0.0], [0.0, 0.0, 1.0, 0.0]] };
+    let p = scratch("singular.nii");
+    std::fs::write(&p, encode_nifti1(&dims, &vals, &sing, StoreType::F32)).expect("write");
+    let e = read_volume(&p).unwrap_err().to_string();
+    assert!(e.contains("singular.nii") && e.contains("singular"), "{e}");
+    // Missing file.
+    assert!(read_volume(&scratch("absent.nii")).is_err());
+}
+
+#[test]
+fn surface_gifti_carries_the_coordinate_system() {
+    let (v, _, _) = ball(3.0, 1.0, false, false);
+    let (mesh, _) = extract(&v, &ExtractOptions::default()).expect("extract");
+    let p = scratch("ball.surf.gii");
+    write_surface(&p, &mesh, &v, std::path::Path::new("mask.nii.gz"), true).expect("write");
+    let g = crate::io::gifti::read(&p).expect("read");
+    let pa = &g.arrays[0];
+    assert_eq!(pa.transforms.len(), 1);
+    assert_eq!(pa.transforms[0].data_space, "NIFTI_XFORM_SCANNER_ANAT");
+    assert_eq!(pa.meta.get("SourceVolume"), Some("mask.nii.gz"));
+    let back = g.to_mesh(&p).expect("mesh");
+    assert_eq!(back, mesh, "FLOAT64 coordinates are exact");
+}
