@@ -26,7 +26,12 @@ pub struct SampleArgs {
     out: PathBuf,
     /// Move each vertex this many mm along its outward unit normal
     /// (area-weighted) before sampling; negative goes inwards.
-    #[arg(long, value_name = "MM", default_value_t = 0.0, allow_hyphen_values = true)]
+    #[arg(
+        long,
+        value_name = "MM",
+        default_value_t = 0.0,
+        allow_hyphen_values = true
+    )]
     offset: f64,
     /// Interpolation.
     #[arg(long, value_enum, default_value_t = MethodArg::Trilinear)]

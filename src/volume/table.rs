@@ -163,6 +163,7 @@ fn edge_mid(e: usize) -> [f64; 3] {
 /// two vertices on a common face, then the total diagonal length. Returns
 /// the triangles and the number of such diagonals left (0 for every loop
 /// that occurs).
+#[allow(clippy::needless_range_loop)]
 fn triangulate(lp: &[usize]) -> (Vec<[u8; 3]>, usize) {
     let n = lp.len();
     let cost = |i: usize, j: usize| -> (usize, f64) {

@@ -4,6 +4,8 @@
 //! its analytic area and volume, cavity filling, piece selection, affine
 //! rules, sampling of linear functions, bad input.
 
+#![allow(clippy::needless_range_loop)]
+
 use super::affine::{Affine, AffineSource, XformFields};
 use super::mask::{solidify, Solid};
 use super::mc::march;
@@ -478,7 +480,7 @@ fn cavities_are_filled_and_the_largest_piece_kept() {
 fn ring_keeps_its_handle() {
     // A square ring of voxels (a digital torus): genus 1, chi 0.
     let dims = [5usize, 5, 1];
-    let mut fg = vec![true; 25];
+    let mut fg = [true; 25];
     fg[12] = false;
     let vals: Vec<f64> = fg.iter().map(|&b| f64::from(u8::from(b))).collect();
     let (solid, rep) = solidify(&vals, dims, 0.5).expect("solidify");
@@ -694,7 +696,11 @@ fn nifti_round_trip_and_refusals() {
     let a = oblique(1.5, true, [3.0, 4.0, 5.0]);
     let dims = [3usize, 4, 5];
     let vals: Vec<f64> = (0..60).map(|i| i as f64 * 0.5 - 7.0).collect();
-    for (store, name) in [(StoreType::F64, "f64.nii"), (StoreType::F32, "f32.nii"), (StoreType::I16, "i16.nii")] {
+    for (store, name) in [
+        (StoreType::F64, "f64.nii"),
+        (StoreType::F32, "f32.nii"),
+        (StoreType::I16, "i16.nii"),
+    ] {
         let p = scratch(name);
         let mut v = vals.clone();
         if store == StoreType::I16 {
@@ -727,7 +733,10 @@ fn nifti_round_trip_and_refusals() {
     let two: Vec<f64> = vals.iter().chain(&vals).copied().collect();
     std::fs::write(&p, encode_nifti1(&[3, 4, 5, 2], &two, &a, StoreType::F32)).expect("write");
     let e = read_volume(&p).unwrap_err().to_string();
-    assert!(e.contains("two4d.nii") && e.contains("header dim") && e.contains("3-D"), "{e}");
+    assert!(
+        e.contains("two4d.nii") && e.contains("header dim") && e.contains("3-D"),
+        "{e}"
+    );
     // 2-D: refused.
     let p = scratch("flat.nii");
     std::fs::write(&p, encode_nifti1(&[3, 4], &vals[..12], &a, StoreType::F32)).expect("write");
@@ -739,7 +748,10 @@ fn nifti_round_trip_and_refusals() {
     let p = scratch("complex.nii");
     std::fs::write(&p, &bytes).expect("write");
     let e = read_volume(&p).unwrap_err().to_string();
-    assert!(e.contains("header datatype") && e.contains("not supported"), "{e}");
+    assert!(
+        e.contains("header datatype") && e.contains("not supported"),
+        "{e}"
+    );
     // Truncated data: refused by the reader.
     let bytes = encode_nifti1(&dims, &vals, &a, StoreType::F64);
     let p = scratch("short.nii");
@@ -747,7 +759,13 @@ fn nifti_round_trip_and_refusals() {
     let e = read_volume(&p).unwrap_err().to_string();
     assert!(e.contains("short.nii"), "{e}");
     // Singular sform.
-    let sing = Affine { m: [[1.0, 0.0, 0.0, 0.0], [2.0, 0.0, 0.0, 0.0], [0.0, 0.0, 1.0, 0.0]] };
+    let sing = Affine {
+        m: [
+            [1.0, 0.0, 0.0, 0.0],
+            [2.0, 0.0, 0.0, 0.0],
+            [0.0, 0.0, 1.0, 0.0],
+        ],
+    };
     let p = scratch("singular.nii");
     std::fs::write(&p, encode_nifti1(&dims, &vals, &sing, StoreType::F32)).expect("write");
     let e = read_volume(&p).unwrap_err().to_string();
