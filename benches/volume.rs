@@ -65,6 +65,15 @@ fn main() {
         times.push(t0.elapsed().as_secs_f64());
         last = Some(r);
     }
+    // Phases of one run (mask steps, marching cubes).
+    let t0 = Instant::now();
+    let (solid, _) = horosphere::volume::mask::solidify(&vol.values, vol.dims, 0.5)
+        .unwrap_or_else(|e| panic!("{e}"));
+    let t_mask = t0.elapsed().as_secs_f64();
+    let t1 = Instant::now();
+    let _ = horosphere::volume::mc::march(&solid, None);
+    let t_mc = t1.elapsed().as_secs_f64();
+    println!("volume: phases: mask steps {t_mask:.3} s, marching cubes {t_mc:.3} s");
     times.sort_by(f64::total_cmp);
     let med = times[times.len() / 2];
     let (mesh, rep) = last.unwrap_or_else(|| panic!("no run"));

@@ -88,34 +88,76 @@ impl Solid {
         Solid { dims, size, grid }
     }
 
-    /// Linear offsets of the 6 face neighbours.
-    fn offsets6(&self) -> Vec<isize> {
+    /// The neighbour rows of a scanline fill: the offset of each row next to
+    /// the current one and whether its run is widened by one voxel at both
+    /// ends. 18-connected: the 4 face rows widened (edge neighbours along
+    /// x) and the 4 diagonal rows not; 6-connected: the 4 face rows only.
+    /// Neighbours along the row itself are the run.
+    fn rows(&self, eighteen: bool) -> Vec<(isize, bool)> {
         let (sx, sxy) = (
             self.size[0] as isize,
             (self.size[0] * self.size[1]) as isize,
         );
-        vec![1, -1, sx, -sx, sxy, -sxy]
-    }
-
-    /// Linear offsets of the 18 face and edge neighbours.
-    fn offsets18(&self) -> Vec<isize> {
-        let (sx, sxy) = (
-            self.size[0] as isize,
-            (self.size[0] * self.size[1]) as isize,
-        );
-        let mut o = Vec::with_capacity(18);
-        for dz in -1isize..=1 {
-            for dy in -1isize..=1 {
-                for dx in -1isize..=1 {
-                    let nz = (dx != 0) as u8 + (dy != 0) as u8 + (dz != 0) as u8;
-                    if nz == 1 || nz == 2 {
-                        o.push(dx + dy * sx + dz * sxy);
-                    }
-                }
+        let mut r = vec![
+            (sx, eighteen),
+            (-sx, eighteen),
+            (sxy, eighteen),
+            (-sxy, eighteen),
+        ];
+        if eighteen {
+            for o in [sx + sxy, sx - sxy, -sx + sxy, -sx - sxy] {
+                r.push((o, false));
             }
         }
-        o
+        r
     }
+}
+
+/// Scanline flood fill (runs along x): change the voxels equal to `from`
+/// connected to `seed` (through the run and the neighbour `rows`) to `to`;
+/// return how many changed, recording the runs `(start, length)` when
+/// asked. The wall around the grid stops every run and row scan, so no
+/// bounds checks are needed.
+fn fill_runs(
+    grid: &mut [u8],
+    seed: usize,
+    from: u8,
+    to: u8,
+    rows: &[(isize, bool)],
+    mut runs: Option<&mut Vec<(usize, usize)>>,
+) -> usize {
+    let mut count = 0usize;
+    let mut stack = vec![seed];
+    while let Some(p) = stack.pop() {
+        if grid[p] != from {
+            continue;
+        }
+        let mut l = p;
+        while grid[l - 1] == from {
+            l -= 1;
+        }
+        let mut r = p;
+        while grid[r + 1] == from {
+            r += 1;
+        }
+        grid[l..=r].fill(to);
+        count += r - l + 1;
+        if let Some(rs) = runs.as_deref_mut() {
+            rs.push((l, r - l + 1));
+        }
+        for &(o, widen) in rows {
+            let (a, b) = if widen { (l - 1, r + 1) } else { (l, r) };
+            let (a, b) = ((a as isize + o) as usize, (b as isize + o) as usize);
+            let mut q = a;
+            while q <= b {
+                if grid[q] == from && (q == a || grid[q - 1] != from) {
+                    stack.push(q);
+                }
+                q += 1;
+            }
+        }
+    }
+    count
 }
 
 /// Threshold `values` at `level`, fill cavities, keep the largest piece.
@@ -165,38 +207,18 @@ pub fn solidify(values: &[f64], dims: [usize; 3], level: f64) -> Result<(Solid, 
     }
     // Cavities: background not reached from the padding (18-connected).
     const SEEN: u8 = 2;
-    let o18 = s.offsets18();
+    const KEEP: u8 = 4;
+    let rows18 = s.rows(true);
+    let rows6 = s.rows(false);
     let start = s.at(1, 1, 1);
-    s.grid[start] = SEEN;
-    let mut stack = vec![start];
-    while let Some(p) = stack.pop() {
-        for &o in &o18 {
-            let q = (p as isize + o) as usize;
-            if s.grid[q] == 0 {
-                s.grid[q] = SEEN;
-                stack.push(q);
-            }
-        }
-    }
-    // Remaining zeros are cavities; count pieces with a second flood.
+    fill_runs(&mut s.grid, start, 0, SEEN, &rows18, None);
+    // Remaining zeros are cavities.
     let mut filled = 0usize;
     let mut cavities = 0usize;
     for p in 0..s.grid.len() {
         if s.grid[p] == 0 {
             cavities += 1;
-            s.grid[p] = 1;
-            filled += 1;
-            stack.push(p);
-            while let Some(c) = stack.pop() {
-                for &o in &o18 {
-                    let q = (c as isize + o) as usize;
-                    if s.grid[q] == 0 {
-                        s.grid[q] = 1;
-                        filled += 1;
-                        stack.push(q);
-                    }
-                }
-            }
+            filled += fill_runs(&mut s.grid, p, 0, 1, &rows18, None);
         }
     }
     for v in s.grid.iter_mut() {
@@ -204,45 +226,37 @@ pub fn solidify(values: &[f64], dims: [usize; 3], level: f64) -> Result<(Solid, 
             *v = 0;
         }
     }
-    // Largest 6-connected piece.
-    let o6 = s.offsets6();
-    let mut label = vec![0u32; s.grid.len()];
-    let mut sizes: Vec<usize> = vec![0];
+    // 6-connected pieces, each as a list of runs.
+    let mut runs: Vec<(usize, usize)> = Vec::new();
+    let mut pieces: Vec<(usize, usize, usize)> = Vec::new(); // run range, voxels
     for p in 0..s.grid.len() {
-        if s.grid[p] == 1 && label[p] == 0 {
-            let id = sizes.len() as u32;
-            label[p] = id;
-            let mut count = 1usize;
-            stack.push(p);
-            while let Some(c) = stack.pop() {
-                for &o in &o6 {
-                    let q = (c as isize + o) as usize;
-                    if s.grid[q] == 1 && label[q] == 0 {
-                        label[q] = id;
-                        count += 1;
-                        stack.push(q);
-                    }
-                }
-            }
-            sizes.push(count);
+        if s.grid[p] == 1 {
+            let r0 = runs.len();
+            let n = fill_runs(&mut s.grid, p, 1, KEEP, &rows6, Some(&mut runs));
+            pieces.push((r0, runs.len(), n));
         }
     }
-    let mut best = 1usize;
-    for (id, &c) in sizes.iter().enumerate().skip(1) {
-        if c > sizes[best] {
-            best = id;
+    let mut best = 0usize;
+    for (i, pc) in pieces.iter().enumerate() {
+        if pc.2 > pieces[best].2 {
+            best = i;
         }
     }
-    let pieces = sizes.len() - 1;
-    let kept = sizes[best];
-    let total: usize = sizes.iter().sum();
-    if pieces > 1 {
-        for (g, &l) in s.grid.iter_mut().zip(&label) {
-            if *g == 1 && l as usize != best {
-                *g = 0;
+    for (i, pc) in pieces.iter().enumerate() {
+        if i != best {
+            for &(a, len) in &runs[pc.0..pc.1] {
+                s.grid[a..a + len].fill(0);
             }
         }
     }
+    for v in s.grid.iter_mut() {
+        if *v == KEEP {
+            *v = 1;
+        }
+    }
+    let kept = pieces[best].2;
+    let total: usize = pieces.iter().map(|p| p.2).sum();
+    let pieces = pieces.len();
     Ok((
         s,
         MaskReport {
