@@ -228,11 +228,12 @@ fn spacings(x: &XformFields) -> Result<[f64; 3]> {
 }
 
 /// The NIfTI-1 name of an xform code (`NIFTI_XFORM_*`), as GIFTI writes it.
+/// Code 3 (a coordinate atlas space) is written as `NIFTI_XFORM_UNKNOWN`,
+/// like any unknown code.
 pub fn xform_name(code: i16) -> &'static str {
     match code {
         1 => "NIFTI_XFORM_SCANNER_ANAT",
         2 => "NIFTI_XFORM_ALIGNED_ANAT",
-        3 => "NIFTI_XFORM_TALAIRACH",
         4 => "NIFTI_XFORM_MNI_152",
         5 => "NIFTI_XFORM_TEMPLATE_OTHER",
         _ => "NIFTI_XFORM_UNKNOWN",
