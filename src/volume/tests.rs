@@ -13,7 +13,6 @@ use super::sample::{nearest, sample, trilinear, Method};
 use super::table::{face_diagonals, table};
 use super::*;
 use crate::mesh::halfedge::Halfedges;
-use crate::mesh::topology::EdgeTable;
 use std::collections::HashMap;
 
 /// Closed, edge-manifold, consistently oriented, vertex-manifold checks;
@@ -64,7 +63,6 @@ fn check_closed_manifold(pos: &[[f64; 3]], faces: &[[u32; 3]]) -> (i64, usize) {
         faces: faces.to_vec(),
     };
     let (_, comps) = crate::mesh::topology::face_components(&m);
-    let _ = EdgeTable::new(&m);
     (chi, comps)
 }
 
