@@ -24,6 +24,7 @@ pub mod report;
 pub mod resample;
 pub mod stats;
 pub mod synth;
+pub mod volume;
 
 pub use error::{Error, Result};
 pub use mesh::TriMesh;

@@ -9,6 +9,7 @@ use std::process::ExitCode;
 mod align;
 mod convert;
 mod demo;
+mod extract;
 mod inspect;
 mod map;
 mod matrix;
@@ -17,6 +18,7 @@ mod repair;
 mod report;
 mod resample;
 mod run;
+mod sample;
 mod sphere;
 mod stats;
 
@@ -58,6 +60,10 @@ enum Command {
     Sphere(sphere::SphereArgs),
     /// Stack resampled maps of a cohort into one GIFTI (and CSV) matrix.
     Matrix(matrix::MatrixArgs),
+    /// Extract the closed surface of a mask volume (NIfTI) by marching cubes.
+    Extract(extract::ExtractArgs),
+    /// Sample a volume (NIfTI) at the vertices of a surface, optionally along normals.
+    Sample(sample::SampleArgs),
     /// Vertex-wise linear model on a cohort matrix: effect, se, t, p, BH q and Cohen's d maps.
     Stats(stats::StatsArgs),
     /// Write the cohort QC report: one self-contained HTML file with tables, pictures and histograms.
@@ -83,6 +89,8 @@ pub fn main() -> ExitCode {
         Command::Matrix(args) => matrix::run(args),
         Command::Stats(args) => stats::run(args),
         Command::Report(args) => report::run(args),
+        Command::Extract(args) => extract::run(args),
+        Command::Sample(args) => sample::run(args),
     };
     match result {
         Ok(code) => code,
