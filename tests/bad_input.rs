@@ -154,7 +154,7 @@ fn cases(tmp: &Path) -> Vec<Case> {
             ("lm.csv", csv.to_vec()),
         ]
     };
-    const ALIGN: &[&str] = &["align", "{d}/sphere.surf.gii", "--landmarks", "{d}/lm.csv", "--template", "{d}/tpl.toml", "-o", "{d}/out.surf.gii"];
+    const ALIGN: &[&str] = &["align", "{d}/sphere.surf.gii", "--landmarks", "{d}/lm.csv", "--template", "{d}/tpl.toml", "--center", "none", "-o", "{d}/out.surf.gii"];
     const STATS: &[&str] = &["stats", "--matrix", "{d}/matrix.func.gii", "--participants", "{d}/participants.tsv", "--formula", "y ~ group + age", "--contrast", "group[T.patient]", "-o", "{d}/out"];
     vec![
         // ---- GIFTI ----
@@ -274,7 +274,7 @@ fn cases(tmp: &Path) -> Vec<Case> {
                 b
             })],
             code: 1,
-            expect: &["cut.ply", "face", "expected"],
+            expect: &["cut.ply", "header", "data bytes", "after the header"],
             outputs: &[],
         },
         Case {
@@ -290,7 +290,7 @@ fn cases(tmp: &Path) -> Vec<Case> {
             args: &["inspect", "{d}/few.off"],
             files: vec![("few.off", b"OFF\n4 2 0\n0 0 0\n1 0 0\n0 1 0\n0 0 1\n3 0 1 2\n".to_vec())],
             code: 1,
-            expect: &["few.off", "expected"],
+            expect: &["few.off", "end of file", "the header declares 2"],
             outputs: &[],
         },
         Case {
@@ -315,7 +315,7 @@ fn cases(tmp: &Path) -> Vec<Case> {
             args: &["map", "{d}/open.obj", "-o", "{d}/out.surf.gii"],
             files: vec![("open.obj", obj(&open))],
             code: 1,
-            expect: &["boundary", "repair"],
+            expect: &["open.obj", "edge", "not closed", "closed, connected, genus-0"],
             outputs: &["out.surf.gii"],
         },
         Case {
@@ -442,11 +442,14 @@ fn cases(tmp: &Path) -> Vec<Case> {
             outputs: &["out"],
         },
         Case {
-            name: "manifest-bad-target",
+            name: "manifest-bad-fit",
             args: &["run", "{d}/m.toml"],
-            files: vec![("m.toml", manifest("[inputs]\nsurface = \"white\"\n[resample]\ntarget = \"icosphere:99\"\n"))],
+            files: vec![
+                ("study/README", b"an empty study".to_vec()),
+                ("m.toml", manifest("[inputs]\nsurface = \"white\"\n[align]\nfit = \"affine\"\n")),
+            ],
             code: 1,
-            expect: &["m.toml", "target", "icosphere:99"],
+            expect: &["m.toml", "align.fit", "affine", "expected mobius or rotation"],
             outputs: &["out"],
         },
         Case {
@@ -516,10 +519,10 @@ fn cases(tmp: &Path) -> Vec<Case> {
         },
         Case {
             name: "design-singular",
-            args: &["stats", "--matrix", "{d}/matrix.func.gii", "--participants", "{d}/participants.tsv", "--formula", "y ~ group + age + age_copy", "--contrast", "group[T.patient]", "-o", "{d}/out"],
+            args: &["stats", "--matrix", "{d}/matrix.func.gii", "--participants", "{d}/participants.tsv", "--formula", "y ~ age + age_copy", "--contrast", "age", "-o", "{d}/out"],
             files: m(vec![]),
             code: 1,
-            expect: &["age_copy"],
+            expect: &["singular", "age_copy"],
             outputs: &["out"],
         },
         Case {
@@ -527,7 +530,7 @@ fn cases(tmp: &Path) -> Vec<Case> {
             args: &["stats", "--matrix", "{d}/matrix.func.gii", "--participants", "{d}/participants.tsv", "--formula", "y ~ group + age", "--contrast", "group[T.control]", "-o", "{d}/out"],
             files: m(vec![]),
             code: 1,
-            expect: &["group[T.control]", "expected"],
+            expect: &["group[T.control]", "coefficients: Intercept, group[T.patient], age"],
             outputs: &["out"],
         },
         Case {
@@ -555,7 +558,9 @@ fn every_bad_input_gives_a_clear_error_and_no_output() {
         let dir = root.join(c.name);
         std::fs::create_dir_all(&dir).unwrap();
         for (n, b) in &c.files {
-            std::fs::write(dir.join(n), b).unwrap();
+            let f = dir.join(n);
+            std::fs::create_dir_all(f.parent().unwrap()).unwrap();
+            std::fs::write(f, b).unwrap();
         }
         let d = dir.display().to_string();
         let args: Vec<String> = c.args.iter().map(|a| a.replace("{d}", &d)).collect();
