@@ -154,7 +154,10 @@ pub fn feed(target: Target, data: &[u8]) {
                     let units: Vec<String> = p.rows.iter().map(|r| r[0].clone()).collect();
                     if let Ok(d) = crate::stats::design::build(path, &p, &f, &units) {
                         assert_eq!(d.x.len(), d.rows * d.names.len(), "design size");
-                        assert!(d.x.iter().all(|v| v.is_finite()), "design has non-finite value");
+                        assert!(
+                            d.x.iter().all(|v| v.is_finite()),
+                            "design has non-finite value"
+                        );
                     }
                 }
             }
@@ -167,7 +170,12 @@ fn seed_mesh() -> TriMesh {
     crate::mesh::shapes::icosphere(0, 1.0)
 }
 
-fn gifti_bytes(g: &Gifti, encoding: Encoding, byte_order: ByteOrder, index_order: IndexOrder) -> Vec<u8> {
+fn gifti_bytes(
+    g: &Gifti,
+    encoding: Encoding,
+    byte_order: ByteOrder,
+    index_order: IndexOrder,
+) -> Vec<u8> {
     let opts = WriteOptions {
         encoding,
         byte_order,
@@ -209,19 +217,39 @@ pub fn seeds(target: Target) -> Vec<(String, Vec<u8>)> {
             }
             put(
                 "surf-base64-big-column.surf.gii",
-                gifti_bytes(&surf, Encoding::Base64Binary, ByteOrder::BigEndian, IndexOrder::ColumnMajor),
+                gifti_bytes(
+                    &surf,
+                    Encoding::Base64Binary,
+                    ByteOrder::BigEndian,
+                    IndexOrder::ColumnMajor,
+                ),
             );
             put(
                 "shape-gzip.shape.gii",
-                gifti_bytes(&shape, Encoding::GZipBase64Binary, ByteOrder::LittleEndian, IndexOrder::RowMajor),
+                gifti_bytes(
+                    &shape,
+                    Encoding::GZipBase64Binary,
+                    ByteOrder::LittleEndian,
+                    IndexOrder::RowMajor,
+                ),
             );
             put(
                 "label-ascii.label.gii",
-                gifti_bytes(&label, Encoding::Ascii, ByteOrder::LittleEndian, IndexOrder::RowMajor),
+                gifti_bytes(
+                    &label,
+                    Encoding::Ascii,
+                    ByteOrder::LittleEndian,
+                    IndexOrder::RowMajor,
+                ),
             );
             put(
                 "label-base64.label.gii",
-                gifti_bytes(&label, Encoding::Base64Binary, ByteOrder::BigEndian, IndexOrder::RowMajor),
+                gifti_bytes(
+                    &label,
+                    Encoding::Base64Binary,
+                    ByteOrder::BigEndian,
+                    IndexOrder::RowMajor,
+                ),
             );
             // A float64 array (DataType NIFTI_TYPE_FLOAT64) in a hand-built file.
             let f64s = DataArray::new(
@@ -238,7 +266,12 @@ pub fn seeds(target: Target) -> Vec<(String, Vec<u8>)> {
             };
             put(
                 "f64-gzip.func.gii",
-                gifti_bytes(&g, Encoding::GZipBase64Binary, ByteOrder::LittleEndian, IndexOrder::RowMajor),
+                gifti_bytes(
+                    &g,
+                    Encoding::GZipBase64Binary,
+                    ByteOrder::LittleEndian,
+                    IndexOrder::RowMajor,
+                ),
             );
         }
         Target::Obj => {
@@ -302,7 +335,8 @@ pub fn seeds(target: Target) -> Vec<(String, Vec<u8>)> {
             );
             put(
                 "no-intercept.tsv",
-                b"y ~ 0 + group\nparticipant_id\tgroup\nsub-a1\tx\nsub-a2\ty\nsub-a3\tn/a\n".to_vec(),
+                b"y ~ 0 + group\nparticipant_id\tgroup\nsub-a1\tx\nsub-a2\ty\nsub-a3\tn/a\n"
+                    .to_vec(),
             );
         }
     }

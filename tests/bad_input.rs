@@ -154,8 +154,31 @@ fn cases(tmp: &Path) -> Vec<Case> {
             ("lm.csv", csv.to_vec()),
         ]
     };
-    const ALIGN: &[&str] = &["align", "{d}/sphere.surf.gii", "--landmarks", "{d}/lm.csv", "--template", "{d}/tpl.toml", "--center", "none", "-o", "{d}/out.surf.gii"];
-    const STATS: &[&str] = &["stats", "--matrix", "{d}/matrix.func.gii", "--participants", "{d}/participants.tsv", "--formula", "y ~ group + age", "--contrast", "group[T.patient]", "-o", "{d}/out"];
+    const ALIGN: &[&str] = &[
+        "align",
+        "{d}/sphere.surf.gii",
+        "--landmarks",
+        "{d}/lm.csv",
+        "--template",
+        "{d}/tpl.toml",
+        "--center",
+        "none",
+        "-o",
+        "{d}/out.surf.gii",
+    ];
+    const STATS: &[&str] = &[
+        "stats",
+        "--matrix",
+        "{d}/matrix.func.gii",
+        "--participants",
+        "{d}/participants.tsv",
+        "--formula",
+        "y ~ group + age",
+        "--contrast",
+        "group[T.patient]",
+        "-o",
+        "{d}/out",
+    ];
     vec![
         // ---- GIFTI ----
         Case {
@@ -564,7 +587,11 @@ fn every_bad_input_gives_a_clear_error_and_no_output() {
         }
         let d = dir.display().to_string();
         let args: Vec<String> = c.args.iter().map(|a| a.replace("{d}", &d)).collect();
-        let out = Command::new(BIN).args(&args).current_dir(&dir).output().unwrap();
+        let out = Command::new(BIN)
+            .args(&args)
+            .current_dir(&dir)
+            .output()
+            .unwrap();
         let err = String::from_utf8_lossy(&out.stderr).into_owned();
         let mut problems = Vec::new();
         if out.status.code() != Some(c.code) {
@@ -596,10 +623,19 @@ fn every_bad_input_gives_a_clear_error_and_no_output() {
             problems.push(format!("temporary files left: {leftovers:?}"));
         }
         if !problems.is_empty() {
-            failures.push(format!("{}: {}\n    stderr: {}", c.name, problems.join("; "), err.trim()));
+            failures.push(format!(
+                "{}: {}\n    stderr: {}",
+                c.name,
+                problems.join("; "),
+                err.trim()
+            ));
         }
         let shown: Vec<String> = c.args.iter().map(|a| a.replace("{d}/", "")).collect();
-        let msg = err.trim().replace(&format!("{d}/"), "").replace('|', "\\|").replace('\n', " ");
+        let msg = err
+            .trim()
+            .replace(&format!("{d}/"), "")
+            .replace('|', "\\|")
+            .replace('\n', " ");
         doc.push_str(&format!(
             "| `{}` | `horosphere {}` | {} | {} |\n",
             c.name,
@@ -610,10 +646,24 @@ fn every_bad_input_gives_a_clear_error_and_no_output() {
     }
     if let Some(p) = std::env::var_os("HOROSPHERE_BAD_INPUT_DOC") {
         let p = PathBuf::from(p);
-        let p = if p.is_absolute() { p } else { Path::new(env!("CARGO_MANIFEST_DIR")).join(p) };
+        let p = if p.is_absolute() {
+            p
+        } else {
+            Path::new(env!("CARGO_MANIFEST_DIR")).join(p)
+        };
         std::fs::write(p, doc).unwrap();
     }
-    assert!(table.len() >= 40, "the table shrank to {} cases", table.len());
-    assert!(failures.is_empty(), "{} of {} cases failed:\n{}", failures.len(), table.len(), failures.join("\n"));
+    assert!(
+        table.len() >= 40,
+        "the table shrank to {} cases",
+        table.len()
+    );
+    assert!(
+        failures.is_empty(),
+        "{} of {} cases failed:\n{}",
+        failures.len(),
+        table.len(),
+        failures.join("\n")
+    );
     let _ = std::fs::remove_dir_all(&root);
 }

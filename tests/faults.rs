@@ -41,7 +41,11 @@ fn study() -> &'static Path {
             .args(["--subjects", "2", "--vertices", "2000", "--seed", "11"])
             .output()
             .unwrap();
-        assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
         d
     })
 }
@@ -112,7 +116,10 @@ fn clean() -> &'static (BTreeMap<String, Vec<u8>>, Duration) {
         assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
         let t = tree(&d.join("out"));
         assert!(t.keys().any(|k| k.ends_with("desc-cohort_qc.csv")));
-        assert!(!t.keys().any(|k| k.contains(".horosphere-run.lock")), "lock file left behind");
+        assert!(
+            !t.keys().any(|k| k.contains(".horosphere-run.lock")),
+            "lock file left behind"
+        );
         (t, dt)
     })
 }
@@ -144,7 +151,12 @@ fn failing_units_leave_the_others_complete() {
     std::fs::write(&lm, lines.join("\n") + "\n").unwrap();
     let m = manifest(&d, &root, &d.join("out"));
     let o = run(&m, &["--jobs", "2", "--json"], &[]);
-    assert_eq!(o.status.code(), Some(1), "{}", String::from_utf8_lossy(&o.stderr));
+    assert_eq!(
+        o.status.code(),
+        Some(1),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
     let v: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
     let failed: Vec<String> = v["failed"]
         .as_array()
@@ -152,8 +164,18 @@ fn failing_units_leave_the_others_complete() {
         .iter()
         .map(|f| f.to_string())
         .collect();
-    assert!(failed.iter().any(|f| f.contains("sub-kf01_hemi-L") && f.contains("white.surf.gii")), "{failed:?}");
-    assert!(failed.iter().any(|f| f.contains("sub-kf02_hemi-R") && f.contains("99999999")), "{failed:?}");
+    assert!(
+        failed
+            .iter()
+            .any(|f| f.contains("sub-kf01_hemi-L") && f.contains("white.surf.gii")),
+        "{failed:?}"
+    );
+    assert!(
+        failed
+            .iter()
+            .any(|f| f.contains("sub-kf02_hemi-R") && f.contains("99999999")),
+        "{failed:?}"
+    );
     // The other two units and their sidecars: the clean run's bytes.
     let got = tree(&d.join("out"));
     let mut compared = 0;
@@ -173,7 +195,10 @@ fn failing_units_leave_the_others_complete() {
             .to_string()
     };
     assert!(row("sub-kf01", "L").contains("failed"), "{qc}");
-    assert!(row("sub-kf02", "R").contains("failed") && row("sub-kf02", "R").contains("align"), "{qc}");
+    assert!(
+        row("sub-kf02", "R").contains("failed") && row("sub-kf02", "R").contains("align"),
+        "{qc}"
+    );
 }
 
 #[test]
@@ -198,9 +223,15 @@ fn a_disk_full_write_leaves_no_truncated_file_and_a_rerun_recovers() {
         for (f, bytes) in &got {
             assert!(!f.ends_with(".tmp"), "temporary left: {f}");
             assert!(!f.ends_with(".lock"), "lock left: {f}");
-            assert!(clean.get(f) == Some(bytes), "after {after} writes: {f} is not the clean run's file");
+            assert!(
+                clean.get(f) == Some(bytes),
+                "after {after} writes: {f} is not the clean run's file"
+            );
         }
-        assert!(got.len() < clean.len(), "every file was written despite the fault");
+        assert!(
+            got.len() < clean.len(),
+            "every file was written despite the fault"
+        );
         // A rerun without the hook completes with the clean bytes.
         let o = run(&m, &["--jobs", "2", "--allow-failed"], &[]);
         assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
@@ -241,10 +272,16 @@ fn seeded_kills_then_a_final_run_give_the_clean_bytes() {
             if f.ends_with(".tmp") || f.ends_with(".horosphere-run.lock") {
                 continue;
             }
-            assert!(clean.get(&f) == Some(&bytes), "after a kill: {f} is not the clean run's file");
+            assert!(
+                clean.get(&f) == Some(&bytes),
+                "after a kill: {f} is not the clean run's file"
+            );
         }
     }
-    assert!(killed >= 2, "only {killed} runs were killed; the delays are too long");
+    assert!(
+        killed >= 2,
+        "only {killed} runs were killed; the delays are too long"
+    );
     let o = run(&m, &["--jobs", "2", "--allow-failed"], &[]);
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     assert_same_tree(clean, &out, "final run after kills");
@@ -275,11 +312,18 @@ fn a_second_run_on_the_same_output_is_refused() {
     let still_running = first.try_wait().unwrap().is_none();
     first.kill().ok();
     first.wait().unwrap();
-    assert!(still_running, "the first run finished before the second started; test inconclusive");
+    assert!(
+        still_running,
+        "the first run finished before the second started; test inconclusive"
+    );
     for (what, o) in [("second run", &second), ("unit job", &unit_job)] {
         let err = String::from_utf8_lossy(&o.stderr);
         assert_eq!(o.status.code(), Some(1), "{what}: {err}");
-        assert!(err.contains(".horosphere-run.lock") && err.contains("in use by horosphere run (process"), "{what}: {err}");
+        assert!(
+            err.contains(".horosphere-run.lock")
+                && err.contains("in use by horosphere run (process"),
+            "{what}: {err}"
+        );
         assert!(!err.contains("panicked"), "{err}");
     }
     // The killed holder's lock file is taken over by the next run.

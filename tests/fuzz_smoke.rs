@@ -60,7 +60,9 @@ fn corpora_and_regressions_replay_without_panic() {
             seeds_dir.display()
         );
         let mut all = seed_files;
-        all.extend(files_in(&repo().join("tests/data/fuzz-regressions").join(t.name())));
+        all.extend(files_in(
+            &repo().join("tests/data/fuzz-regressions").join(t.name()),
+        ));
         all.extend(files_in(&repo().join("fuzz/corpus").join(t.name())));
         for f in all {
             let bytes = std::fs::read(&f).unwrap();
@@ -70,7 +72,11 @@ fn corpora_and_regressions_replay_without_panic() {
             total += 1;
         }
     }
-    assert!(failures.is_empty(), "panics on replay:\n{}", failures.join("\n"));
+    assert!(
+        failures.is_empty(),
+        "panics on replay:\n{}",
+        failures.join("\n")
+    );
     assert!(total >= 7 * 2, "replayed only {total} files");
 }
 
@@ -87,7 +93,12 @@ fn seed_files_match_our_writers() {
             }
             let on_disk = std::fs::read(&path)
                 .unwrap_or_else(|e| panic!("{}: {e}; regenerate the seeds", path.display()));
-            assert_eq!(on_disk, bytes, "{} differs from what the writers make", path.display());
+            assert_eq!(
+                on_disk,
+                bytes,
+                "{} differs from what the writers make",
+                path.display()
+            );
             // A seed is a valid input: the reader must accept it.
             assert!(run(t, &bytes).is_ok());
         }
@@ -195,7 +206,11 @@ fn mutation_loop(t: Target) {
         if let Err(m) = run(t, &input) {
             let out = std::env::temp_dir().join(format!("horosphere-fuzz-smoke-{}-{k}", t.name()));
             let _ = std::fs::write(&out, &input);
-            failures.push(format!("{} seed {name} mutation {k}: {m} (input saved to {})", t.name(), out.display()));
+            failures.push(format!(
+                "{} seed {name} mutation {k}: {m} (input saved to {})",
+                t.name(),
+                out.display()
+            ));
         }
     }
     assert!(failures.is_empty(), "panics:\n{}", failures.join("\n"));
@@ -284,6 +299,9 @@ fn huge_declared_dimensions_do_not_allocate() {
         let e = horosphere::io::gifti::parse(xml.as_bytes(), Path::new("huge.shape.gii"))
             .expect_err("accepted");
         let msg = e.to_string();
-        assert!(msg.contains("huge.shape.gii") && msg.contains("DataArray"), "{enc}: {msg}");
+        assert!(
+            msg.contains("huge.shape.gii") && msg.contains("DataArray"),
+            "{enc}: {msg}"
+        );
     }
 }

@@ -115,7 +115,10 @@ impl RunLock {
                 let _ = file.set_len(0);
                 let _ = file.write_all(text.as_bytes());
             } else if file.metadata().map(|m| m.len() == 0).unwrap_or(false) {
-                let text = format!("horosphere unit jobs (process {} and others)\n", std::process::id());
+                let text = format!(
+                    "horosphere unit jobs (process {} and others)\n",
+                    std::process::id()
+                );
                 let _ = file.write_all(text.as_bytes());
             }
             return Ok(RunLock {
@@ -166,8 +169,13 @@ mod tests {
         let dir = std::env::temp_dir().join(format!("horosphere-lock-{}", std::process::id()));
         let _ = std::fs::remove_dir_all(&dir);
         let a = RunLock::acquire(&dir, LockMode::Exclusive).unwrap();
-        let e = RunLock::acquire(&dir, LockMode::Exclusive).unwrap_err().to_string();
-        assert!(e.contains(LOCK_FILE) && e.contains("in use by horosphere run (process"), "{e}");
+        let e = RunLock::acquire(&dir, LockMode::Exclusive)
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains(LOCK_FILE) && e.contains("in use by horosphere run (process"),
+            "{e}"
+        );
         assert!(RunLock::acquire(&dir, LockMode::Shared).is_err());
         drop(a);
         assert!(!dir.join(LOCK_FILE).exists(), "lock file left behind");
@@ -175,7 +183,10 @@ mod tests {
         let s2 = RunLock::acquire(&dir, LockMode::Shared).unwrap();
         assert!(RunLock::acquire(&dir, LockMode::Exclusive).is_err());
         drop(s1);
-        assert!(dir.join(LOCK_FILE).exists(), "removed while shared holder remains");
+        assert!(
+            dir.join(LOCK_FILE).exists(),
+            "removed while shared holder remains"
+        );
         drop(s2);
         assert!(!dir.join(LOCK_FILE).exists());
         // A left-over file that nobody holds (a killed run) is taken over.

@@ -11,8 +11,8 @@
 //! `--units-only --only ...` jobs of a workflow engine).
 
 use super::discover::{units, Unit};
-use super::lock::{LockMode, RunLock};
 use super::group::{write_dataset_description, write_group, GroupSummary};
+use super::lock::{LockMode, RunLock};
 use super::manifest::Manifest;
 use super::provenance::sha256_file;
 use super::unit::{run_unit, Shared, UnitRecord};
