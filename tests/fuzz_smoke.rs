@@ -65,7 +65,10 @@ fn corpora_and_regressions_replay_without_panic() {
         ));
         all.extend(files_in(&repo().join("fuzz/corpus").join(t.name())));
         for f in all {
-            let bytes = std::fs::read(&f).unwrap();
+            // A running fuzzer may remove corpus files it has reduced.
+            let Ok(bytes) = std::fs::read(&f) else {
+                continue;
+            };
             if let Err(m) = run(t, &bytes) {
                 failures.push(format!("{}: {m}", f.display()));
             }
