@@ -12,6 +12,7 @@
 pub mod align;
 pub mod cohort;
 pub mod error;
+pub mod fuzzing;
 pub mod handles;
 pub mod inspect;
 pub mod io;

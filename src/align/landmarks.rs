@@ -117,6 +117,21 @@ pub struct Fit {
 /// be non-empty and unique.
 pub fn read_landmarks(path: &Path) -> Result<Vec<RawLandmark>> {
     let (mut rdr, header) = super::open_csv(path)?;
+    landmarks_from(path, &mut rdr, header)
+}
+
+/// Parse landmark CSV bytes held in memory, as [`read_landmarks`] does for a
+/// file (`path` names the table in errors). Used by the fuzz targets.
+pub fn parse_landmarks(path: &Path, bytes: &[u8]) -> Result<Vec<RawLandmark>> {
+    let (mut rdr, header) = super::csv_from_bytes(path, bytes.to_vec())?;
+    landmarks_from(path, &mut rdr, header)
+}
+
+fn landmarks_from(
+    path: &Path,
+    rdr: &mut super::CsvReader,
+    header: Vec<String>,
+) -> Result<Vec<RawLandmark>> {
     let by_vertex = header == ["name", "vertex"];
     let by_point = header == ["name", "x", "y", "z"];
     if !by_vertex && !by_point {
@@ -131,7 +146,7 @@ pub fn read_landmarks(path: &Path) -> Result<Vec<RawLandmark>> {
     }
     let mut out = Vec::new();
     let mut seen = HashSet::new();
-    for row in super::csv_rows(path, &mut rdr) {
+    for row in super::csv_rows(path, rdr) {
         let (line, element, rec) = row?;
         let field = |i: usize| rec.get(i).unwrap_or("");
         let name = field(0).to_string();

@@ -219,6 +219,14 @@ pub(crate) type CsvReader = csv::Reader<std::io::Cursor<Vec<u8>>>;
 /// (fields trimmed); shared by the landmark and cohort-table readers.
 pub(crate) fn open_csv(path: &std::path::Path) -> Result<(CsvReader, Vec<String>)> {
     let bytes = std::fs::read(path).map_err(|e| Error::io(path, e))?;
+    csv_from_bytes(path, bytes)
+}
+
+/// A table held in memory, as [`open_csv`] reads it (`path` names it in errors).
+pub(crate) fn csv_from_bytes(
+    path: &std::path::Path,
+    bytes: Vec<u8>,
+) -> Result<(CsvReader, Vec<String>)> {
     let mut rdr = csv::ReaderBuilder::new()
         .has_headers(true)
         .trim(csv::Trim::All)

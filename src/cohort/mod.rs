@@ -19,12 +19,14 @@
 //! Layout: [`manifest`] (the TOML file), [`discover`] (subjects and input
 //! files), [`unit`] (one subject and hemisphere through inspect -> repair
 //! -> map -> align -> resample), [`group`] (matrices, QC table),
-//! [`provenance`] (SHA-256 sidecars), [`runner`] (the parallel run).
+//! [`provenance`] (SHA-256 sidecars), [`runner`] (the parallel run),
+//! [`lock`] (one run at a time per output folder).
 //! The methods are those of the stages, cited in their modules and in
 //! [`unit`].
 
 pub mod discover;
 pub mod group;
+pub mod lock;
 pub mod manifest;
 pub mod provenance;
 pub mod runner;

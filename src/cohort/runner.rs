@@ -6,10 +6,13 @@
 //! true: units run on a rayon pool of `jobs` threads, one unit per task,
 //! each unit's work deterministic, so every output is byte-identical for
 //! any `jobs`; a failing unit is recorded and the others go on; a unit
-//! whose record is current is skipped (see [`super::unit`]).
+//! whose record is current is skipped (see [`super::unit`]); the output
+//! folder is locked for the run ([`super::lock`]: exclusive, or shared for
+//! `--units-only --only ...` jobs of a workflow engine).
 
 use super::discover::{units, Unit};
 use super::group::{write_dataset_description, write_group, GroupSummary};
+use super::lock::{LockMode, RunLock};
 use super::manifest::Manifest;
 use super::provenance::{sha256_file, write_sidecar, FileHash, GeneratedBy, Sidecar};
 use super::unit::{run_unit, Shared, UnitRecord};
@@ -90,6 +93,20 @@ pub fn shared_data(m: &Manifest) -> Result<Shared> {
     })
 }
 
+/// Remove temporary files left in the output root by a killed run (only
+/// while holding the exclusive lock: nobody else is writing there).
+fn remove_root_temporaries(output: &std::path::Path) {
+    let Ok(entries) = std::fs::read_dir(output) else {
+        return;
+    };
+    for e in entries.flatten() {
+        let name = e.file_name().to_string_lossy().into_owned();
+        if name.starts_with('.') && name.ends_with(".tmp") {
+            let _ = std::fs::remove_file(e.path());
+        }
+    }
+}
+
 /// Run the cohort of `m`.
 pub fn run(
     m: &Manifest,
@@ -100,6 +117,15 @@ pub fn run(
     let selected: Vec<Unit> = units(m, &opts.only, &opts.hemi)?;
     let shared = shared_data(m)?;
     std::fs::create_dir_all(&m.output).map_err(|e| Error::io(&m.output, e))?;
+    let mode = if opts.skip_group && !opts.only.is_empty() {
+        LockMode::Shared
+    } else {
+        LockMode::Exclusive
+    };
+    let _lock = RunLock::acquire(&m.output, mode)?;
+    if mode == LockMode::Exclusive {
+        remove_root_temporaries(&m.output);
+    }
     write_dataset_description(m)?;
     let mut summary = RunSummary {
         units: 0,

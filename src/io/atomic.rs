@@ -2,6 +2,13 @@
 //! flush and sync it, then rename it over the destination. A failure at any
 //! point removes the temporary file, so a destination is either the old file,
 //! the complete new file, or absent; never half-written.
+//!
+//! Testing hook (fault injection, `tests/faults.rs`): when the environment
+//! variable `HOROSPHERE_FAULT_WRITE_AFTER=N` is set, the first `N` writes of
+//! the process succeed and every later one fails after its bytes went to the
+//! temporary file, with an I/O error of kind `StorageFull` (as on a full
+//! disk). It exists to prove that a failed write leaves no truncated or
+//! stale file; it is never set in normal use and costs one atomic counter.
 
 use crate::error::{Error, Result};
 use std::fs::{self, File};
@@ -10,6 +17,38 @@ use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicU64, Ordering};
 
 static COUNTER: AtomicU64 = AtomicU64::new(0);
+
+/// Writes completed so far in this process (for the fault-injection hook).
+static WRITES: AtomicU64 = AtomicU64::new(0);
+
+/// Name of the fault-injection environment variable (see the module documentation).
+pub const FAULT_WRITE_AFTER: &str = "HOROSPHERE_FAULT_WRITE_AFTER";
+
+/// The hook's limit, read once per process.
+fn fault_limit() -> Option<u64> {
+    static LIMIT: std::sync::OnceLock<Option<u64>> = std::sync::OnceLock::new();
+    *LIMIT.get_or_init(|| {
+        std::env::var(FAULT_WRITE_AFTER)
+            .ok()
+            .and_then(|v| v.trim().parse().ok())
+    })
+}
+
+/// An injected disk-full error when the hook's limit is reached.
+fn injected_fault(tmp: &Path) -> Result<()> {
+    if let Some(limit) = fault_limit() {
+        if WRITES.fetch_add(1, Ordering::SeqCst) >= limit {
+            return Err(Error::io(
+                tmp,
+                std::io::Error::new(
+                    std::io::ErrorKind::StorageFull,
+                    format!("injected write failure ({FAULT_WRITE_AFTER}={limit})"),
+                ),
+            ));
+        }
+    }
+    Ok(())
+}
 
 /// Temporary path beside `dest`, unique within this process and across processes.
 fn temp_path(dest: &Path) -> PathBuf {
@@ -37,6 +76,8 @@ where
         let file = File::create(&tmp).map_err(|e| Error::io(&tmp, e))?;
         let mut w = BufWriter::with_capacity(1 << 20, file);
         fill(&mut w)?;
+        w.flush().map_err(|e| Error::io(&tmp, e))?;
+        injected_fault(&tmp)?;
         let file = w
             .into_inner()
             .map_err(|e| Error::io(&tmp, e.into_error()))?;

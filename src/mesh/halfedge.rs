@@ -51,7 +51,7 @@ pub fn next(h: u32) -> u32 {
 /// Previous halfedge in the same face.
 #[inline(always)]
 pub fn prev(h: u32) -> u32 {
-    if h % 3 == 0 {
+    if h.is_multiple_of(3) {
         h + 2
     } else {
         h - 1

@@ -35,6 +35,12 @@ pub struct Participants {
 /// Read a tab-separated participants table.
 pub fn read_participants(path: &Path) -> Result<Participants> {
     let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, e))?;
+    parse_participants(path, &text)
+}
+
+/// Parse participants-table text held in memory, as [`read_participants`]
+/// does for a file (`path` names the table in errors). Used by the fuzz targets.
+pub fn parse_participants(path: &Path, text: &str) -> Result<Participants> {
     let mut lines = text
         .lines()
         .enumerate()

@@ -310,7 +310,7 @@ fn check_defect(kind: DefectKind, hemi: Hemi, seed: u64) {
 fn defects_are_exactly_what_is_planted() {
     for (i, kind) in DefectKind::ALL.iter().enumerate() {
         for seed in [31u64, 32] {
-            let hemi = if (i + seed as usize) % 2 == 0 {
+            let hemi = if (i + seed as usize).is_multiple_of(2) {
                 Hemi::Left
             } else {
                 Hemi::Right
