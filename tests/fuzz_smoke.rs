@@ -308,3 +308,74 @@ fn huge_declared_dimensions_do_not_allocate() {
         );
     }
 }
+
+/// The NIfTI reader (`volume::nifti::read_volume`, through the `nifti`
+/// crate) takes a path, so its mutations go through a scratch file: small
+/// valid volumes from our own writer (uint8, int16, float32, float64; an
+/// oblique affine), mutated, written, read, and, when accepted, checked
+/// against the reader's promise (three dimensions whose product is the
+/// value count, finite invertible affine). Also gzip-compressed. No panic
+/// is allowed; a libFuzzer target for this reader is still to do
+/// (docs/fuzzing.md).
+#[test]
+fn mutations_nifti() {
+    use horosphere::volume::affine::Affine;
+    use horosphere::volume::nifti::{encode_nifti1, read_volume, StoreType};
+    use std::io::Write;
+    let affine = Affine {
+        m: [
+            [0.9, 0.1, 0.0, -10.0],
+            [-0.1, 1.1, 0.05, 4.0],
+            [0.0, 0.02, 1.3, 2.5],
+        ],
+    };
+    let dims = [3usize, 4, 5];
+    let values: Vec<f64> = (0..60).map(|i| (i % 7) as f64 * 0.5).collect();
+    let seeds: Vec<Vec<u8>> = [
+        StoreType::U8,
+        StoreType::I16,
+        StoreType::F32,
+        StoreType::F64,
+    ]
+    .into_iter()
+    .map(|s| encode_nifti1(&dims, &values, &affine, s))
+    .collect();
+    let dir = std::env::temp_dir().join(format!("horosphere-fuzz-nifti-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    // The unmutated seeds are read back exactly.
+    for (k, s) in seeds.iter().enumerate() {
+        let p = dir.join(format!("seed{k}.nii"));
+        std::fs::write(&p, s).unwrap();
+        let v = read_volume(&p).expect("our own NIfTI file reads back");
+        assert_eq!(v.dims, dims);
+        assert_eq!(v.values.len(), 60);
+    }
+    let mut rng = SplitMix64::new(0x5eed_0100);
+    let mut failures = Vec::new();
+    for k in 0..600 {
+        let input = mutate(&mut rng, &seeds[k % seeds.len()]);
+        let gz = k % 3 == 2;
+        let p = dir.join(if gz { "m.nii.gz" } else { "m.nii" });
+        let bytes = if gz {
+            let mut e = flate2::write::GzEncoder::new(Vec::new(), flate2::Compression::fast());
+            e.write_all(&input).unwrap();
+            e.finish().unwrap()
+        } else {
+            input.clone()
+        };
+        std::fs::write(&p, &bytes).unwrap();
+        let r = catch_unwind(AssertUnwindSafe(|| {
+            if let Ok(v) = read_volume(&p) {
+                assert_eq!(v.dims.iter().product::<usize>(), v.values.len());
+                assert!(v.affine.m.iter().flatten().all(|x| x.is_finite()));
+            }
+        }));
+        if r.is_err() {
+            let out = dir.join(format!("panic-{k}.nii"));
+            let _ = std::fs::write(&out, &input);
+            failures.push(format!("mutation {k}: input saved to {}", out.display()));
+        }
+    }
+    assert!(failures.is_empty(), "panics:\n{}", failures.join("\n"));
+    let _ = std::fs::remove_dir_all(&dir);
+}
