@@ -2,42 +2,66 @@
 //! cut them until the surface has genus 0.
 //!
 //! In: a [`TriMesh`] that is a closed, consistently oriented 2-manifold
-//! (positions in mm). Out: one [`Handle`] record per handle (loop length in
-//! mm, loop vertices, centre, touched neighbour vertices) and, for
-//! [`cut_handles`], a genus-0 mesh where each cut loop has been capped on
-//! both sides. What stays true: the output is closed, consistently
-//! oriented and connected; the Euler characteristic rises by 2 per cut
-//! (`V - E + F = 2 - 2g`); original vertices keep their ids and positions.
+//! (positions in mm) and [`HandleOptions`]. Out: one [`Handle`] record per
+//! handle (loop length in mm, loop vertices, centre, touched neighbour
+//! vertices, tube area removed) and, for [`cut_handles`], a genus-0 mesh
+//! with, per vertex, the input vertex it stands for. What stays true: the
+//! output is closed, consistently oriented and connected; each cut lowers
+//! the genus by exactly one (`V - E + F = 2 - 2g`, checked after every cut);
+//! input vertices that remain keep their ids and positions (copies and cap
+//! centres follow). Errors: open or non-manifold input is refused
+//! ([`Error::NotReady`], "repair first"); so is a genus over
+//! [`HandleOptions::max_genus`] (reported, nothing attempted).
 //!
-//! Method. A homology basis comes from the tree-cotree decomposition of
-//! Eppstein ("Dynamic generators of topologically embedded graphs", ACM-SIAM
-//! SODA 2003): a spanning tree `T` of the vertices, a spanning tree `C` of
-//! the dual graph over the edges not in `T`, and the `2g` leftover edges
-//! `L`. Following Erickson and Whittlesey ("Greedy optimal homotopy and
-//! homology generators", ACM-SIAM SODA 2005), `T` is a shortest-path tree
-//! (Dijkstra, edge lengths in mm) from a root `r`, and every non-tree edge
-//! `e = (u, v)` closes the loop `path(r, u) + e + path(v, r)`. The Z2
-//! homology class of that loop in the basis of leftover loops is computed by
-//! walking the cotree from its leaves (each face boundary is null-homologous,
-//! so the class of a cotree edge is the sum of the classes of the other
-//! edges of its child face; tree edges carry class 0). A loop is
-//! non-separating exactly when its class is non-zero, and the shortest such
-//! loop through `r` is the shortest non-separating loop based at `r`.
+//! Homology. One tree-cotree decomposition (Eppstein, "Dynamic generators
+//! of topologically embedded graphs", ACM-SIAM SODA 2003: a spanning tree of
+//! the vertices, a spanning tree of the dual graph over the other edges, and
+//! `2g` leftover edges) gives every edge a Z2 label of `2g` bits such that
+//! the XOR of the labels along any cycle is its homology class; a cycle is
+//! non-separating exactly when that XOR is non-zero.
 //!
-//! Bounded roots (documented approximation). The exact shortest
-//! non-separating cycle needs every vertex as root (Erickson and
-//! Whittlesey); for speed we use [`ROOT_SAMPLE`] vertices spread by index,
-//! then up to [`LOOP_ROOTS`] vertices spread along the best loop found so
-//! far, for up to [`REFINE_ROUNDS`] rounds. A loop through a tube's own
-//! vertices is found once any of them is a root, which the refinement
-//! supplies: the first loop of a thin tube passes through the tube.
+//! Shortest loop (exact up to a length). Erickson and Whittlesey ("Greedy
+//! optimal homotopy and homology generators", ACM-SIAM SODA 2005) show that
+//! the shortest non-separating cycle through a vertex `r` is
+//! `path(r, u) + (u, v) + path(v, r)` in the shortest-path tree of `r` for
+//! the non-tree edge minimising the length among those whose loop has a
+//! non-zero class: the cycle is the Z2 sum of the fundamental cycles of its
+//! non-tree edges, each no longer than the cycle, so one of them is
+//! non-separating. Two facts make this cheap and still exact: (1) the root
+//! may be any vertex of the shortest cycle, and every non-separating cycle
+//! has an edge with a non-zero label, so the roots are only the endpoints
+//! of labelled edges; (2) a loop of length at most `L` through `r` only
+//! uses vertices within `L` of `r`, so each Dijkstra stops at radius `L`.
+//! `L` starts at [`START_RADIUS_EDGES`] mean edge lengths and doubles up to
+//! the loop limit; the first radius at which any root has a loop gives the
+//! exact shortest loop (ties: lowest root id). A handle longer than the
+//! limit is reported with an upper bound: the best loop over
+//! [`ROOT_SAMPLE`] roots, refined with [`LOOP_ROOTS`] roots along the best
+//! loop for up to [`REFINE_ROUNDS`] rounds. Roots run in parallel; the
+//! result does not depend on the thread count.
 //!
-//! Cutting. The loop (a simple vertex cycle after trimming the common part
-//! of the two tree paths) is cut by duplicating its vertices for the faces
-//! on its left, giving two boundary loops; each is capped with the hole
-//! filling of [`crate::repair::holes`] (the dynamic programme of Liepa,
-//! falling back to a fan around a new centre vertex). The cut is repeated
-//! until genus 0; a loop longer than the limit is reported and left.
+//! Removing the tube. Cutting the loop of a thin tube and capping leaves two
+//! capped stubs. Following the wavefront idea of Guskov and Wood
+//! ("Topological noise removal", Graphics Interface 2001), fronts are grown
+//! from each side of the cut, level by level (breadth-first vertex levels;
+//! after each level the region is the faces whose three vertices are
+//! reached). The growth ends when the front flares past
+//! [`TUBE_STOP_FACTOR`] loop lengths: the tube has opened into the surface.
+//! Candidate ends are the levels whose region is an annulus (connected,
+//! Euler characteristic 0, bounded by the cut; the empty region counts)
+//! with a far boundary (the front) at most [`TUBE_FRONT_FACTOR`] times the
+//! loop length; the side's tube ends at the candidate after which the
+//! front grows by the largest factor (where it opens fastest). If either side
+//! never flares (it reaches the other side of the cut, as on a torus, or
+//! runs over [`TUBE_MAX_VERTICES`]), or the two regions overlap or exceed
+//! [`MAX_TUBE_AREA_FRACTION`] of the area, nothing is removed. The regions
+//! are deleted and the two fronts capped; if the result is not one piece of
+//! genus one lower, the plain cut is used instead.
+//!
+//! Capping. Each boundary loop is capped with the hole filling of
+//! [`crate::repair::holes`] (the minimum-area dynamic programme of
+//! Barequet and Sharir 1995 / Liepa 2003; a fan around a new centre vertex
+//! for loops over 200 edges or when no triangulation is allowed).
 
 use crate::error::{Error, Result};
 use crate::mesh::halfedge::{face, Halfedges};
@@ -65,7 +89,7 @@ pub const DEFAULT_MAX_LOOP_MM: f64 = 30.0;
 /// First radius of the exact search, in mean edge lengths (then doubled).
 const START_RADIUS_EDGES: f64 = 8.0;
 /// A tube front may be this many times the cut loop's length.
-pub const TUBE_FRONT_FACTOR: f64 = 1.5;
+pub const TUBE_FRONT_FACTOR: f64 = 1.9;
 /// The tube growth stops when its front exceeds this many loop lengths.
 const TUBE_STOP_FACTOR: f64 = 3.0;
 /// The tube growth stops after this many vertices on one side.
@@ -551,9 +575,10 @@ fn uf_find(p: &mut [usize], mut i: usize) -> usize {
 /// Grow the tube on one side of the cut (module doc, "Removing the tube"):
 /// breadth-first levels of vertices from the side's boundary loop `side`
 /// (level `k` = `k` edges away); after each level the region is the faces
-/// whose three vertices are all reached. Returns the region of the last
-/// level that is an annulus bounded by `side` and a front no longer than
-/// [`TUBE_FRONT_FACTOR`] times the loop (possibly no faces), or `None` when
+/// whose three vertices are all reached. Among the levels whose region is
+/// an annulus bounded by `side` and a front no longer than
+/// [`TUBE_FRONT_FACTOR`] times the loop (the empty region included), returns
+/// the one after which the front grows by the largest factor, or `None` when
 /// the front never flared beyond [`TUBE_STOP_FACTOR`] loop lengths (it met
 /// the other side of the cut, ran out of surface or of the vertex budget):
 /// then the side is no tube end.
@@ -584,7 +609,9 @@ fn grow_tube(
     let mut vert_count = std::collections::HashMap::<u32, u32>::new();
     let mut front = 0.0f64;
     let mut covered = 0usize;
-    let mut last_valid = 0usize;
+    // Per level: (front length, valid annulus, faces); the empty region
+    // (the cut loop itself as the front) comes first.
+    let mut levels: Vec<(f64, bool, usize)> = vec![(loop_len, true, 0)];
     let mut popped = 0usize;
     while !level.is_empty() {
         if level.iter().any(|&v| other[v as usize]) {
@@ -639,11 +666,19 @@ fn grow_tube(
             }
         }
         let chi = vert_count.len() as i64 - edge_count.len() as i64 + order.len() as i64;
-        if comps == 1 && chi == 0 && covered == n && front <= TUBE_FRONT_FACTOR * loop_len {
-            last_valid = order.len();
-        }
+        let valid = comps == 1 && chi == 0 && covered == n && front <= TUBE_FRONT_FACTOR * loop_len;
+        levels.push((front, valid, order.len()));
         if front > TUBE_STOP_FACTOR * loop_len {
-            order.truncate(last_valid);
+            // The tube ends where it opens fastest: the valid level whose
+            // next front grows by the largest factor (the deepest on ties).
+            let mut pick = (0.0f64, 0usize);
+            for w in levels.windows(2) {
+                let ((f, ok, k), (f_next, _, _)) = (w[0], w[1]);
+                if ok && f > 0.0 && f_next / f >= pick.0 {
+                    pick = (f_next / f, k);
+                }
+            }
+            order.truncate(pick.1);
             return Some(order);
         }
         if popped > TUBE_MAX_VERTICES {

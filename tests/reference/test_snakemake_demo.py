@@ -11,6 +11,7 @@ workflow engine from PyPI). Every output file must be byte-identical
 The binary comes from HOROSPHERE_BIN (default target/debug/horosphere).
 """
 
+import csv
 import os
 import pathlib
 import subprocess
@@ -113,8 +114,13 @@ def test_snakemake_on_the_bundled_demo_cohort(tmp_path):
     assert sum(1 for k in a if k.endswith("_desc-pipeline_record.json")) == 28
     qc = a["group/desc-cohort_qc.csv"].decode().splitlines()
     assert len(qc) == 1 + 28
-    # The planted handle (ground truth: sub-kf14, right hemisphere) is the one failure.
-    failed = [row for row in qc[1:] if row.split(",")[2] == "failed"]
-    assert [row.split(",")[:2] for row in failed] == [["sub-kf14", "R"]]
+    # The planted handle (ground truth: sub-kf14, right hemisphere) is found,
+    # cut and the unit goes through; no unit fails.
+    rows = list(csv.DictReader(qc))
+    assert [r["subject"] for r in rows if r["status"] == "failed"] == []
+    cut = [(r["subject"], r["hemi"]) for r in rows if r["handles_cut"] not in ("", "0")]
+    assert cut == [("sub-kf14", "R")]
+    kf14 = next(r for r in rows if (r["subject"], r["hemi"]) == ("sub-kf14", "R"))
+    assert kf14["status"] == "repaired" and kf14["handles_found"] == "1"
     for k in a:
         assert a[k] == b[k], k
