@@ -223,7 +223,7 @@ fn demo_cohort_outcomes_follow_the_ground_truth() {
                     .sqrt();
                 assert!(off < 8.0, "handle at {at:?}, planted at {truth:?}");
             }
-            "hole" | "stray-component" | "duplicate-vertices" if r["handles_found"] != "" => {
+            "hole" | "stray-component" | "duplicate-vertices" if !r["handles_found"].is_empty() => {
                 assert_eq!(r["handles_found"], "0", "{r:?}");
                 assert_eq!(r["handle_locations"], "", "{r:?}");
             }
