@@ -702,45 +702,56 @@ fn grow_tube(
     None
 }
 
-/// Boundary loops of an oriented surface with boundary, each in the order
-/// its faces traverse it. `None` when a boundary vertex is pinched.
-fn boundary_cycles(nv: usize, faces: &[[u32; 3]]) -> Option<Vec<Vec<u32>>> {
-    let mut directed = HashSet::new();
-    for t in faces {
-        for k in 0..3 {
-            directed.insert((t[k], t[(k + 1) % 3]));
-        }
-    }
-    let mut next = vec![u32::MAX; nv];
+/// Boundary loops of the faces not `removed`, each in the order its faces
+/// traverse it, found from the candidate start vertices `cand` (every
+/// boundary vertex must be among them). `None` when a boundary vertex is
+/// pinched or a loop does not close.
+fn boundary_cycles(
+    faces: &[[u32; 3]],
+    removed: &[bool],
+    vf: &(Vec<usize>, Vec<u32>),
+    cand: &[u32],
+) -> Option<Vec<Vec<u32>>> {
+    let (start, list) = vf;
+    let mut next = std::collections::HashMap::<u32, u32>::new();
     let mut starts = Vec::new();
-    for t in faces {
-        for k in 0..3 {
-            let (a, b) = (t[k], t[(k + 1) % 3]);
-            if !directed.contains(&(b, a)) {
-                if next[a as usize] != u32::MAX {
+    for &a in cand {
+        let ai = a as usize;
+        let around = &list[start[ai]..start[ai + 1]];
+        for &f in around {
+            if removed[f as usize] {
+                continue;
+            }
+            let t = faces[f as usize];
+            let k = t.iter().position(|&v| v == a)?;
+            let b = t[(k + 1) % 3];
+            // Is there a kept face with the halfedge b -> a?
+            let twin = around.iter().any(|&g| {
+                !removed[g as usize] && {
+                    let u = faces[g as usize];
+                    (0..3).any(|j| u[j] == b && u[(j + 1) % 3] == a)
+                }
+            });
+            if !twin {
+                if next.insert(a, b).is_some() {
                     return None;
                 }
-                next[a as usize] = b;
                 starts.push(a);
             }
         }
     }
     starts.sort_unstable();
-    let mut seen = vec![false; nv];
+    let mut seen = HashSet::new();
     let mut loops = Vec::new();
     for s in starts {
-        if seen[s as usize] {
+        if seen.contains(&s) {
             continue;
         }
         let mut lp = Vec::new();
         let mut v = s;
-        while !seen[v as usize] {
-            seen[v as usize] = true;
+        while seen.insert(v) {
             lp.push(v);
-            v = next[v as usize];
-            if v == u32::MAX {
-                return None;
-            }
+            v = *next.get(&v)?;
         }
         if v != s {
             return None;
@@ -780,7 +791,8 @@ fn cut_remove_cap(
     if remove_tube {
         let left: Vec<u32> = (n0 as u32..nv as u32).collect();
         let right: Vec<u32> = cyc.to_vec();
-        let vf = vertex_faces(nv, &faces);
+        let vf0 = vertex_faces(nv, &faces);
+        let vf = &vf0;
         let mut on_left = vec![false; nv];
         let mut on_right = vec![false; nv];
         left.iter().for_each(|&v| on_left[v as usize] = true);
@@ -807,15 +819,27 @@ fn cut_remove_cap(
             removed_area = 0.0;
         }
     }
+    // Boundary halfedges can only start at loop vertices, their copies and
+    // vertices of removed faces: look there only.
+    let vf = vertex_faces(nv, &faces);
+    let mut cand: Vec<u32> = cyc.to_vec();
+    cand.extend(n0 as u32..nv as u32);
+    for (f, t) in faces.iter().enumerate() {
+        if removed[f] {
+            cand.extend_from_slice(t);
+        }
+    }
+    cand.sort_unstable();
+    cand.dedup();
+    let loops = boundary_cycles(&faces, &removed, &vf, &cand)
+        .filter(|l| l.len() == 2)
+        .ok_or_else(|| alg("the cut did not leave exactly two simple boundary loops".into()))?;
     let kept: Vec<[u32; 3]> = faces
         .iter()
         .zip(&removed)
         .filter(|(_, &r)| !r)
         .map(|(t, _)| *t)
         .collect();
-    let loops = boundary_cycles(nv, &kept)
-        .filter(|l| l.len() == 2)
-        .ok_or_else(|| alg("the cut did not leave exactly two simple boundary loops".into()))?;
     let mut positions = positions;
     let mut faces = kept;
     for lp in &loops {
