@@ -791,8 +791,7 @@ fn cut_remove_cap(
     if remove_tube {
         let left: Vec<u32> = (n0 as u32..nv as u32).collect();
         let right: Vec<u32> = cyc.to_vec();
-        let vf0 = vertex_faces(nv, &faces);
-        let vf = &vf0;
+        let vf = vertex_faces(nv, &faces);
         let mut on_left = vec![false; nv];
         let mut on_right = vec![false; nv];
         left.iter().for_each(|&v| on_left[v as usize] = true);
