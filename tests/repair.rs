@@ -188,6 +188,46 @@ fn non_manifold_input_is_refused_without_output() {
 }
 
 #[test]
+fn genus_over_the_limit_is_reported_not_attempted() {
+    let dir = temp_dir("genus");
+    let src = dir.join("torus.obj");
+    horosphere::io::write_mesh(&src, &horosphere::mesh::shapes::torus(10.0, 2.0, 32, 12)).unwrap();
+    let out = dir.join("never.obj");
+    let args = |g: &'static str| -> Vec<&OsStr> {
+        vec![
+            "repair".as_ref(),
+            src.as_os_str(),
+            "-o".as_ref(),
+            out.as_os_str(),
+            "--cut-handles".as_ref(),
+            "--max-genus".as_ref(),
+            g.as_ref(),
+        ]
+    };
+    let run = horosphere(&args("0"));
+    assert_eq!(run.status.code(), Some(1));
+    let err = String::from_utf8_lossy(&run.stderr);
+    assert!(
+        err.contains("genus 1") && err.contains("limit 0") && err.contains("not attempted"),
+        "{err}"
+    );
+    assert!(!out.exists());
+    // Within the limit the handle is cut.
+    let run = horosphere(&args("1"));
+    assert!(
+        run.status.success(),
+        "{}",
+        String::from_utf8_lossy(&run.stderr)
+    );
+    let m = horosphere::io::read_mesh(&out).unwrap();
+    assert_eq!(
+        m.n_vertices() as i64 - 3 * m.n_faces() as i64 / 2 + m.n_faces() as i64,
+        2
+    );
+    std::fs::remove_dir_all(&dir).unwrap();
+}
+
+#[test]
 fn bad_flags_are_refused() {
     let dir = temp_dir("bad");
     let src = dir.join("s.obj");
@@ -198,6 +238,8 @@ fn bad_flags_are_refused() {
         ["--merge-tolerance", "nan"],
         ["--max-dp-hole", "5000"],
         ["--hole-weight", "nonsense"],
+        ["--max-genus", "40"],
+        ["--max-handle-mm", "-3"],
     ] {
         let mut args: Vec<&OsStr> = vec![
             "repair".as_ref(),

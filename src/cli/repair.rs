@@ -46,6 +46,10 @@ pub struct RepairArgs {
     /// reported and left.
     #[arg(long, value_name = "MM", default_value_t = 30.0)]
     max_handle_mm: f64,
+    /// With `--cut-handles`: a surface of higher genus is reported and
+    /// nothing is cut (at most 32).
+    #[arg(long, value_name = "G", default_value_t = 20)]
+    max_genus: i64,
 }
 
 /// `--hole-weight` values.
@@ -105,8 +109,16 @@ fn options(args: &RepairArgs) -> Result<RepairOptions> {
             args.max_handle_mm
         )));
     }
+    if !(0..=horosphere::handles::MAX_GENUS).contains(&args.max_genus) {
+        return Err(Error::Invalid(format!(
+            "--max-genus {} is outside 0 to {}",
+            args.max_genus,
+            horosphere::handles::MAX_GENUS
+        )));
+    }
     Ok(RepairOptions {
         max_handle_mm: args.cut_handles.then_some(args.max_handle_mm),
+        max_genus: args.max_genus,
         merge_tolerance_mm: args.merge_tolerance,
         max_dp_hole_edges: args.max_dp_hole,
         hole_weight: match args.hole_weight {

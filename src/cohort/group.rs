@@ -26,7 +26,7 @@ use crate::resample::matrix::{cohort_gifti, CohortColumn};
 use std::path::PathBuf;
 
 /// Columns of the QC table, in order (documented in docs/user-guide.md).
-pub const QC_COLUMNS: [&str; 37] = [
+pub const QC_COLUMNS: [&str; 41] = [
     "subject",
     "hemi",
     "status",
@@ -49,6 +49,10 @@ pub const QC_COLUMNS: [&str; 37] = [
     "vertices_merged",
     "faces_dropped",
     "faces_reoriented",
+    "handles_found",
+    "handles_cut",
+    "handle_loops_mm",
+    "handle_locations",
     "vertices_mapped",
     "map_path",
     "map_iterations",
@@ -121,6 +125,24 @@ fn qc_row(u: &Unit, r: Option<&UnitRecord>) -> Vec<String> {
         num(p.map(|p| p.vertices_merged)),
         num(p.map(|p| p.faces_dropped)),
         num(p.map(|p| p.faces_reoriented)),
+        num(p.map(|p| p.handles.len())),
+        num(p.map(|p| p.handles.iter().filter(|h| h.cut).count())),
+        p.map(|p| {
+            p.handles
+                .iter()
+                .map(|h| format!("{:.2}", h.loop_mm))
+                .collect::<Vec<_>>()
+                .join("|")
+        })
+        .unwrap_or_default(),
+        p.map(|p| {
+            p.handles
+                .iter()
+                .map(|h| format!("{:.1};{:.1};{:.1}", h.centre[0], h.centre[1], h.centre[2]))
+                .collect::<Vec<_>>()
+                .join("|")
+        })
+        .unwrap_or_default(),
         num(vertices_mapped),
         m.map(|m| m.path.clone()).unwrap_or_default(),
         num(m.map(|m| m.iterations)),

@@ -74,6 +74,25 @@ pub struct RepairSettings {
     /// triangulation; larger ones a fan around a new centre vertex.
     #[serde(default = "default_hole_edges")]
     pub max_hole_edges: usize,
+    /// Cut handles (genus > 0) of the repaired surface along their
+    /// shortest non-separating loops, removing thin tubes
+    /// ([`crate::handles`]).
+    #[serde(default = "yes")]
+    pub cut_handles: bool,
+    /// Longest handle loop cut (mm); a longer one fails the unit.
+    #[serde(default = "default_max_handle_mm")]
+    pub max_handle_mm: f64,
+    /// A repaired surface of higher genus fails the unit without a search.
+    #[serde(default = "default_max_genus")]
+    pub max_genus: i64,
+}
+
+fn default_max_handle_mm() -> f64 {
+    crate::handles::DEFAULT_MAX_LOOP_MM
+}
+
+fn default_max_genus() -> i64 {
+    crate::handles::DEFAULT_MAX_GENUS
 }
 
 fn yes() -> bool {
@@ -90,6 +109,9 @@ impl Default for RepairSettings {
             enabled: true,
             merge_tolerance_mm: 0.0,
             max_hole_edges: default_hole_edges(),
+            cut_handles: true,
+            max_handle_mm: default_max_handle_mm(),
+            max_genus: default_max_genus(),
         }
     }
 }
@@ -369,6 +391,27 @@ impl Manifest {
                 format!("{}; expected 3 to 2000", r.max_hole_edges),
             ));
         }
+        if !(r.max_handle_mm.is_finite() && r.max_handle_mm > 0.0) {
+            return Err(bad(
+                path,
+                "repair.max_handle_mm",
+                format!(
+                    "{}; expected a positive number of millimetres",
+                    r.max_handle_mm
+                ),
+            ));
+        }
+        if !(0..=crate::handles::MAX_GENUS).contains(&r.max_genus) {
+            return Err(bad(
+                path,
+                "repair.max_genus",
+                format!(
+                    "{}; expected 0 to {}",
+                    r.max_genus,
+                    crate::handles::MAX_GENUS
+                ),
+            ));
+        }
         let pole = match &raw.map.pole {
             None => PoleSetting::Auto,
             Some(toml::Value::String(s)) if s == "auto" => PoleSetting::Auto,
@@ -491,6 +534,15 @@ method = { regions = "majority" }
             Path::new("/study/pipelines/tpl-L.toml")
         );
         assert_eq!(m.repair.max_hole_edges, 60);
+        assert!(m.repair.cut_handles);
+        assert_eq!(m.repair.max_handle_mm, 30.0);
+        assert_eq!(m.repair.max_genus, 20);
+        let bad = GOOD.replace("[map]", "[repair]\nmax_handle_mm = -1.0\n[map]");
+        let e = Manifest::parse(&bad, Path::new("/m.toml")).unwrap_err();
+        assert!(e.to_string().contains("repair.max_handle_mm"), "{e}");
+        let bad = GOOD.replace("[map]", "[repair]\nmax_genus = 99\n[map]");
+        let e = Manifest::parse(&bad, Path::new("/m.toml")).unwrap_err();
+        assert!(e.to_string().contains("repair.max_genus"), "{e}");
         assert_eq!(m.map.radius_mm, 100.0);
     }
 

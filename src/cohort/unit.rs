@@ -94,6 +94,23 @@ pub struct RepairFigures {
     pub vertices_out: usize,
     pub faces_out: usize,
     pub genus: i64,
+    /// Handles found on the repaired surface, in the order they were cut
+    /// (the last one is uncut when its loop was over the limit).
+    #[serde(default)]
+    pub handles: Vec<HandleFigure>,
+}
+
+/// One handle found by repair ([`crate::handles`]).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct HandleFigure {
+    /// Length of its shortest non-separating loop (mm).
+    pub loop_mm: f64,
+    /// Centre of the loop (mm, native space of the input surface).
+    pub centre: [f64; 3],
+    /// Whether it was cut.
+    pub cut: bool,
+    /// Area of the tube removed with the cut (mm^2; 0 when only cut).
+    pub removed_area_mm2: f64,
 }
 
 /// Convergence and distortion of the map.
@@ -570,6 +587,8 @@ fn compute(
         let opts = RepairOptions {
             merge_tolerance_mm: m.repair.merge_tolerance_mm,
             max_dp_hole_edges: m.repair.max_hole_edges,
+            max_handle_mm: m.repair.cut_handles.then_some(m.repair.max_handle_mm),
+            max_genus: m.repair.max_genus,
             ..RepairOptions::default()
         };
         let r = repair(&input, &opts).map_err(at("repair"))?;
@@ -585,12 +604,29 @@ fn compute(
             vertices_out: log.output_vertices,
             faces_out: log.output_faces,
             genus: log.genus,
+            handles: log
+                .handles
+                .iter()
+                .map(|h| HandleFigure {
+                    loop_mm: h.length_mm,
+                    centre: h.centre,
+                    cut: h.cut,
+                    removed_area_mm2: h.removed_area_mm2,
+                })
+                .collect(),
         });
         if log.genus != 0 {
+            let why = match log.handles.iter().find(|h| !h.cut) {
+                Some(h) => format!(
+                    "its shortest handle loop is {:.1} mm long at ({:.1}, {:.1}, {:.1}) mm, over the limit repair.max_handle_mm = {} mm",
+                    h.length_mm, h.centre[0], h.centre[1], h.centre[2], m.repair.max_handle_mm
+                ),
+                None => "handle cutting is off (repair.cut_handles = false)".to_string(),
+            };
             return Err(StageError {
                 stage: "repair",
                 error: Error::NotReady(format!(
-                    "{}: the repaired surface has genus {} (a handle); the mapper needs genus 0 and repair does not cut handles",
+                    "{}: the repaired surface has genus {} (a handle) and the mapper needs genus 0: {why}",
                     relative(&u.surface, &m.root),
                     log.genus
                 )),

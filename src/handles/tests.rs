@@ -56,6 +56,13 @@ fn sphere_with_tube(big: f64, r: f64, n: usize) -> (TriMesh, f64) {
     (revolve(&prof, n), tube_area)
 }
 
+fn opts(max_loop_mm: f64) -> HandleOptions {
+    HandleOptions {
+        max_loop_mm,
+        ..HandleOptions::default()
+    }
+}
+
 fn assert_genus0_closed_connected(m: &TriMesh) {
     // Closed oriented manifold: the halfedge build refuses anything else.
     assert_eq!(euler(m), 2, "V - E + F = 2 - 2g with g = 0, b = 0");
@@ -84,7 +91,7 @@ fn torus_has_one_loop_of_tube_circumference() {
         "{c:?}"
     );
     assert!(!hs[0].neighbours.is_empty());
-    let cut = cut_handles(&m, 30.0).unwrap();
+    let cut = cut_handles(&m, &opts(30.0)).unwrap();
     assert_eq!(cut.genus, 0);
     assert!(cut.handles[0].cut);
     assert_genus0_closed_connected(&cut.mesh);
@@ -95,7 +102,7 @@ fn torus_has_one_loop_of_tube_circumference() {
 fn double_torus_has_two_loops_and_cuts_to_genus0() {
     let m = double_torus(10.0, 2.0, 32, 12);
     assert_eq!(euler(&m), -2);
-    let cut = cut_handles(&m, f64::INFINITY).unwrap();
+    let cut = cut_handles(&m, &opts(f64::INFINITY)).unwrap();
     assert_eq!(cut.handles.len(), 2);
     assert_eq!(cut.genus, 0);
     assert_genus0_closed_connected(&cut.mesh);
@@ -107,52 +114,164 @@ fn double_torus_has_two_loops_and_cuts_to_genus0() {
 }
 
 #[test]
-fn sphere_with_thin_tube_keeps_the_sphere() {
-    let (big, r) = (20.0, 1.5);
-    let (m, tube_area) = sphere_with_tube(big, r, 24);
+fn sphere_with_thin_tube_loses_the_tube_and_keeps_the_sphere() {
+    // Sphere radius R = 20 mm, tube radius r = 1.5 mm, tube length L = 2 zt
+    // (about 39.9 mm) along the z axis, 24-gon cross-section.
+    let (big, r, n) = (20.0, 1.5, 24);
+    let (m, tube_area) = sphere_with_tube(big, r, n);
     assert_eq!(euler(&m), 0);
-    let cut = cut_handles(&m, 30.0).unwrap();
+    let cut = cut_handles(&m, &opts(30.0)).unwrap();
     assert_eq!(cut.handles.len(), 1);
     let h = &cut.handles[0];
+    // Loop length: the tube circumference 2 pi r (analytic) within 1%; the
+    // 24-gon is 0.29% shorter.
     let want = TAU * r;
-    assert!((h.length_mm - want).abs() < 0.02 * want, "{}", h.length_mm);
+    assert!((h.length_mm - want).abs() < 0.01 * want, "{}", h.length_mm);
     // The loop lies on the tube (every vertex at distance r from the axis).
     for &v in &h.vertices {
         let p = m.positions[v as usize];
         assert!((p[0].hypot(p[1]) - r).abs() < 1e-9);
     }
     assert_genus0_closed_connected(&cut.mesh);
-    // The sphere is kept: area changes only by the two caps (2 pi r^2 at
-    // most) - the tube is still there, cut across and capped - so the area
-    // grows by about the two discs; the sphere's outer vertices are intact.
-    let grow = cut.mesh.area() - m.area();
+    // The tube is gone: every vertex left lies on the sphere (the two
+    // junction rings are capped by flat polygons through their own
+    // vertices), and the area drops by the tube's lateral area less the two
+    // caps. Analytic: lateral area 2 pi r L; each cap is the regular 24-gon
+    // of circumradius r, (n/2) r^2 sin(2 pi / n).
+    for p in &cut.mesh.positions {
+        assert!(
+            (crate::mesh::norm(*p) - big).abs() < 1e-9,
+            "{p:?} is off the sphere"
+        );
+    }
+    let cap = 0.5 * n as f64 * r * r * (TAU / n as f64).sin();
+    let change = cut.mesh.area() - m.area();
     assert!(
-        grow > 0.0 && grow < 2.0 * PI * r * r * 1.01,
-        "{grow} vs tube {tube_area}"
+        (change - (2.0 * cap - tube_area)).abs() < 1e-6 * tube_area,
+        "area change {change} vs {}",
+        2.0 * cap - tube_area
     );
-    // Every outer-sphere vertex survives (duplicates of the rim map back).
-    let mut far: Vec<u32> = cut
-        .mesh
+    assert!((h.removed_area_mm2 - tube_area).abs() < 1e-6 * tube_area);
+    let zt = big * (r / big).acos().sin();
+    let lateral = TAU * r * 2.0 * zt;
+    assert!(
+        (-change - lateral).abs() < 0.05 * lateral,
+        "area change {change} vs tube 2 pi r L = {lateral}"
+    );
+    // Every sphere vertex survives (only tube vertices are gone).
+    let on_sphere = m
         .positions
         .iter()
-        .zip(&cut.origin)
-        .filter(|(p, _)| crate::mesh::norm(**p) > big * 0.99)
-        .filter_map(|(_, o)| *o)
-        .collect();
-    far.sort_unstable();
-    far.dedup();
-    let far0 = m
-        .positions
-        .iter()
-        .filter(|p| crate::mesh::norm(**p) > big * 0.99)
+        .filter(|p| (crate::mesh::norm(**p) - big).abs() < 1e-9)
         .count();
-    assert_eq!(far.len(), far0);
+    assert_eq!(cut.mesh.n_vertices(), on_sphere);
+    // Without tube removal the same loop is only cut: the area grows.
+    let plain = cut_handles(
+        &m,
+        &HandleOptions {
+            remove_tubes: false,
+            ..opts(30.0)
+        },
+    )
+    .unwrap();
+    assert_genus0_closed_connected(&plain.mesh);
+    assert!(plain.mesh.area() > m.area());
+    assert_eq!(plain.handles[0].removed_area_mm2, 0.0);
+}
+
+/// The Erickson-Whittlesey algorithm without truncation: the shortest
+/// non-separating loop through every vertex, over all vertices.
+fn brute_force_shortest(m: &TriMesh) -> f64 {
+    let he = Halfedges::from_faces(m.n_vertices(), &m.faces).unwrap();
+    let class = cohomology(&he).unwrap();
+    let p = &m.positions;
+    let len = he
+        .edge_half
+        .iter()
+        .map(|&h| dist(p[he.tail[h as usize] as usize], p[he.head(h) as usize]))
+        .collect();
+    let ctx = Ctx {
+        he: &he,
+        len,
+        class,
+    };
+    let mut s = Scratch::new(m.n_vertices());
+    (0..m.n_vertices() as u32)
+        .filter_map(|r| root_loop(&ctx, &mut s, r, f64::INFINITY).map(|(l, _)| l))
+        .fold(f64::INFINITY, f64::min)
+}
+
+#[test]
+fn shortest_loop_is_exact_on_tori_of_several_aspect_ratios() {
+    // (major R, minor r, segments around the axis, around the tube). The
+    // shortest non-separating loop of a torus of revolution is the shorter
+    // of the tube circle (2 pi r) and the inner equator (2 pi (R - r));
+    // the last two tori are fat, so there the inner equator wins.
+    for &(big, r, nu, nm) in &[
+        (10.0, 1.0, 48, 12),
+        (10.0, 3.0, 40, 16),
+        (6.0, 3.5, 40, 16),
+        (4.0, 3.0, 40, 16),
+    ] {
+        let m = torus(big, r, nu, nm);
+        let found = shortest_nonseparating_loop(&m, 30.0).unwrap().unwrap();
+        let brute = brute_force_shortest(&m);
+        assert!(
+            (found.0 - brute).abs() < 1e-9,
+            "R {big} r {r}: {} vs every-root {brute}",
+            found.0
+        );
+        let meridian = 2.0 * nm as f64 * r * (PI / nm as f64).sin();
+        let inner = 2.0 * nu as f64 * (big - r) * (PI / nu as f64).sin();
+        let polygon = meridian.min(inner);
+        assert!(
+            (found.0 - polygon).abs() < 1e-9,
+            "R {big} r {r}: {} vs polygon {polygon}",
+            found.0
+        );
+        let analytic = TAU * r.min(big - r);
+        assert!(
+            (found.0 - analytic).abs() < 0.02 * analytic,
+            "R {big} r {r}: {} vs 2 pi min(r, R - r) = {analytic}",
+            found.0
+        );
+        assert_eq!(found.1.len(), if meridian < inner { nm } else { nu });
+    }
+}
+
+#[test]
+fn genus_over_the_limit_is_reported_not_attempted() {
+    let m = double_torus(10.0, 2.0, 24, 8);
+    let e = cut_handles(
+        &m,
+        &HandleOptions {
+            max_genus: 1,
+            ..HandleOptions::default()
+        },
+    )
+    .unwrap_err();
+    assert!(matches!(e, Error::NotReady(_)), "{e}");
+    let text = e.to_string();
+    assert!(
+        text.contains("genus 2") && text.contains("limit 1") && text.contains("not attempted"),
+        "{text}"
+    );
+    // At the limit it goes through.
+    let ok = cut_handles(
+        &m,
+        &HandleOptions {
+            max_genus: 2,
+            ..HandleOptions::default()
+        },
+    )
+    .unwrap();
+    assert_eq!(ok.genus, 0);
 }
 
 #[test]
 fn limit_leaves_long_handles_alone() {
     let m = torus(10.0, 2.0, 64, 24);
-    let cut = cut_handles(&m, 5.0).unwrap();
+    let cut = cut_handles(&m, &opts(5.0)).unwrap();
     assert_eq!(cut.genus, 1);
     assert_eq!(cut.handles.len(), 1);
     assert!(!cut.handles[0].cut);
@@ -173,6 +292,14 @@ fn non_manifold_input_asks_for_repair() {
     let e = find_handles(&m).unwrap_err();
     assert!(matches!(e, Error::NotReady(_)));
     assert!(e.to_string().contains("repair first"), "{e}");
+    let e = cut_handles(&m, &HandleOptions::default()).unwrap_err();
+    assert!(e.to_string().contains("repair first"), "{e}");
+    // An open surface (one face removed) is refused the same way.
+    let mut open = torus(10.0, 2.0, 16, 8);
+    open.faces.pop();
+    let e = cut_handles(&open, &HandleOptions::default()).unwrap_err();
+    assert!(matches!(e, Error::NotReady(_)));
+    assert!(e.to_string().contains("repair first"), "{e}");
 }
 
 #[test]
@@ -189,7 +316,7 @@ fn planted_synthetic_handle_is_found_at_its_place() {
     let s = folded_surface(&params, seed).unwrap();
     let e = plant(&s, DefectKind::Handle, &mut Rng::new(seed), &[0, 1, 2]).unwrap();
     assert_eq!(euler(&e.mesh), 0);
-    let cut = cut_handles(&e.mesh, 30.0).unwrap();
+    let cut = cut_handles(&e.mesh, &opts(30.0)).unwrap();
     assert_eq!(cut.handles.len(), 1);
     let h = &cut.handles[0];
     // The planted tube is a 3-quad prism whose six triangles are the last
@@ -228,6 +355,22 @@ fn planted_synthetic_handle_is_found_at_its_place() {
     );
     assert!(h.vertices.len() <= 6);
     assert!(h.cut);
+    // The tube is removed and both openings capped by one triangle each:
+    // the surface before planting comes back (same vertices; the six tube
+    // faces out, two faces in, every other face kept).
+    assert!(h.removed_area_mm2 > 0.0);
+    assert_eq!(cut.mesh.positions, e.mesh.positions);
+    assert_eq!(cut.mesh.n_faces(), e.mesh.n_faces() - 4);
+    assert_eq!(cut.mesh.n_faces(), s.mesh.n_faces());
+    let canon = |t: &[u32; 3]| {
+        let k = (0..3).min_by_key(|&k| t[k]).unwrap();
+        [t[k], t[(k + 1) % 3], t[(k + 2) % 3]]
+    };
+    let out: HashSet<[u32; 3]> = cut.mesh.faces.iter().map(canon).collect();
+    let n_keep = e.mesh.n_faces() - 6;
+    assert!(e.mesh.faces[..n_keep]
+        .iter()
+        .all(|t| out.contains(&canon(t))));
     assert_genus0_closed_connected(&cut.mesh);
 }
 

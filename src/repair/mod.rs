@@ -75,6 +75,14 @@ pub struct RepairOptions {
     /// (mm), see [`crate::handles`]; `None` keeps every handle.
     #[serde(default)]
     pub max_handle_mm: Option<f64>,
+    /// With `max_handle_mm`: a surface of higher genus is refused
+    /// ([`Error::NotReady`]) before any handle is searched.
+    #[serde(default = "default_max_genus")]
+    pub max_genus: i64,
+}
+
+fn default_max_genus() -> i64 {
+    crate::handles::DEFAULT_MAX_GENUS
 }
 
 impl Default for RepairOptions {
@@ -84,6 +92,7 @@ impl Default for RepairOptions {
             max_dp_hole_edges: 60,
             hole_weight: HoleWeight::AngleThenArea,
             max_handle_mm: None,
+            max_genus: default_max_genus(),
         }
     }
 }
@@ -537,7 +546,14 @@ pub fn repair(mesh: &TriMesh, opts: &RepairOptions) -> Result<Repaired> {
             .map(|he| he.euler_characteristic() < 2)
             .unwrap_or(false);
         if ok {
-            let cut = crate::handles::cut_handles(&out, limit)?;
+            let cut = crate::handles::cut_handles(
+                &out,
+                &crate::handles::HandleOptions {
+                    max_loop_mm: limit,
+                    max_genus: opts.max_genus,
+                    remove_tubes: true,
+                },
+            )?;
             let mut handles = cut.handles;
             // Report handle vertices as input vertices where they have one.
             for h in &mut handles {

@@ -587,6 +587,7 @@ fn random_defect_combinations() {
                 HoleWeight::AngleThenArea
             },
             max_handle_mm: None,
+            ..RepairOptions::default()
         };
         match repair(&m, &opts) {
             Ok(r) => {

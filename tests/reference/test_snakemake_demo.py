@@ -13,6 +13,7 @@ workflow engine from PyPI). Every output file must be byte-identical
 The binary comes from HOROSPHERE_BIN (default target/debug/horosphere).
 """
 
+import csv
 import os
 import pathlib
 import subprocess
@@ -133,16 +134,22 @@ def test_snakemake_on_the_bundled_demo_cohort(bundled):
     assert sum(1 for k in a if k.endswith("_desc-pipeline_record.json")) == units
     qc = a["group/desc-cohort_qc.csv"].decode().splitlines()
     assert len(qc) == 1 + units
-    # The failures are exactly the units whose planted defect the pipeline
-    # cannot repair (ground truth: the handle).
-    failed = sorted(row.split(",")[:2] for row in qc[1:] if row.split(",")[2] == "failed")
-    expected = sorted(
-        [s["participant_id"], h["hemi"]]
+    # Every planted defect is repaired, the handle included (found and cut):
+    # no unit fails, and the handle is cut exactly where the ground truth
+    # planted one.
+    rows = list(csv.DictReader(qc))
+    assert [r["subject"] for r in rows if r["status"] == "failed"] == []
+    planted = sorted(
+        (s["participant_id"], h["hemi"])
         for s in truth["subjects"]
         for h in s["hemispheres"]
         if (h.get("defect") or {}).get("kind") == "handle"
     )
-    assert failed == expected
+    assert len(planted) == 1
+    cut = sorted((r["subject"], r["hemi"]) for r in rows if r["handles_cut"] not in ("", "0"))
+    assert cut == planted
+    unit = next(r for r in rows if (r["subject"], r["hemi"]) == planted[0])
+    assert unit["status"] == "repaired" and unit["handles_found"] == "1"
     for k in a:
         assert a[k] == b[k], k
 
