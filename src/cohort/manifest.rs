@@ -651,4 +651,36 @@ method = { regions = "majority" }
             Manifest::parse(&GOOD.replace("template = \"tpl-{hemi}.toml\"", ""), p).unwrap_err();
         assert!(e.to_string().contains("inputs.landmarks"), "{e}");
     }
+
+    #[test]
+    fn register_section_defaults_off_and_resolves_the_template_per_hemisphere() {
+        let p = Path::new("/study/pipelines/m.toml");
+        assert_eq!(Manifest::parse(GOOD, p).unwrap().register, None);
+        let off = GOOD.to_string() + "[register]\nenabled = false\ntemplate = \"x\"\n";
+        assert_eq!(Manifest::parse(&off, p).unwrap().register, None);
+        let dir =
+            std::env::temp_dir().join(format!("horosphere-manifest-reg-{}", std::process::id()));
+        std::fs::create_dir_all(dir.join("tpl-L")).unwrap();
+        std::fs::write(dir.join("tpl-L/template.json"), "{}").unwrap();
+        let on = GOOD.replace(
+            "\"thickness\", \"regions\"",
+            "\"thickness\", \"regions\", \"depth\"",
+        ) + "[register]\nenabled = true\ntemplate = \"tpl-{hemi}\"\nstep = 0.2\n";
+        let m = Manifest::parse(&on, &dir.join("m.toml")).unwrap();
+        let r = m.register.unwrap();
+        assert_eq!(r.features, vec!["depth".to_string()]);
+        assert_eq!(r.step, 0.2);
+        assert_eq!(r.tolerance, 1e-4);
+        assert_eq!(r.template_for("L"), dir.join("tpl-L"));
+        let e = Manifest::parse(
+            &on.replace("[\"L\"]", "[\"L\", \"R\"]"),
+            &dir.join("m.toml"),
+        )
+        .unwrap_err();
+        assert!(e.to_string().contains("tpl-R"), "{e}");
+        let e =
+            Manifest::parse(&on.replace("\"depth\"", "\"sulc\""), &dir.join("m.toml")).unwrap_err();
+        assert!(e.to_string().contains("register.features"), "{e}");
+        let _ = std::fs::remove_dir_all(&dir);
+    }
 }
