@@ -1,6 +1,6 @@
 //! One subject and hemisphere through the whole chain: read, inspect,
-//! repair, map, align, resample; outputs with provenance sidecars and the
-//! unit record.
+//! repair, map, align, register (optional, `[register]` in the manifest),
+//! resample; outputs with provenance sidecars and the unit record.
 //!
 //! In: a [`Unit`] (its input files), the [`Manifest`] and the run's
 //! [`Shared`] data (target sphere). Out: files under
@@ -29,7 +29,9 @@
 //! the exact discrete conformal map of Bobenko, Pinkall and Springborn
 //! (Geom. Topol. 19, 2015) and Springborn (Discrete Comput. Geom. 64, 2020)
 //! ([`crate::map`]), Moebius centring (Springborn, Math. Z. 249, 2005) and
-//! landmark fits ([`crate::align`]), resampling and heat-kernel smoothing
+//! landmark fits ([`crate::align`]), log-domain diffeomorphic demons on the
+//! sphere (Vercauteren, Pennec, Perchant, Ayache, NeuroImage 45, 2009)
+//! ([`crate::register`]), resampling and heat-kernel smoothing
 //! (Chung et al., NeuroImage 25, 2005) ([`crate::resample`]).
 
 use super::discover::Unit;
