@@ -87,6 +87,7 @@ def main():
     ap.add_argument("--radius-deg", type=float, default=30.0)
     ap.add_argument("--margin-deg", type=float, default=10.0)
     ap.add_argument("--jobs", type=int, default=2)
+    ap.add_argument("--rounds", type=int, default=2)
     a = ap.parse_args()
     b = os.path.abspath(a.bin)
     w = os.path.abspath(a.work)
@@ -108,7 +109,7 @@ def main():
     tdir = os.path.join(w, "tpl-L")
     if not os.path.exists(os.path.join(tdir, "template.json")):
         sh([b, "register-template", "--cohort", os.path.join(w, "table.csv"), "-o", tdir,
-            "--level", "5", "--rounds", "2"])
+            "--level", "5", "--rounds", a.rounds])
     reg = os.path.join(w, "reg")
     manifest(os.path.join(w, "reg.toml"), study, reg,
              '[register]\nenabled = true\ntemplate = "tpl-{hemi}"\nfeatures = ["depth"]\n')
