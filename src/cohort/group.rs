@@ -68,6 +68,10 @@ pub const QC_COLUMNS: [&str; 41] = [
     "landmarks",
     "landmark_rms_deg",
     "landmark_max_deg",
+    "register_corr_before",
+    "register_corr_after",
+    "register_jacobian_min",
+    "register_folded",
 ];
 
 /// What the cohort step wrote.
@@ -100,6 +104,7 @@ fn qc_row(u: &Unit, r: Option<&UnitRecord>) -> Vec<String> {
     let p = r.repair.as_ref();
     let m = r.map.as_ref();
     let a = r.align.as_ref();
+    let g = r.register.as_ref();
     let vertices_mapped =
         m.map(|_| p.map_or_else(|| i.map_or(0, |i| i.vertices), |p| p.vertices_out));
     vec![
@@ -158,6 +163,10 @@ fn qc_row(u: &Unit, r: Option<&UnitRecord>) -> Vec<String> {
         num(a.map(|a| a.landmarks)),
         num(a.and_then(|a| a.rms_degrees)),
         num(a.and_then(|a| a.max_degrees)),
+        num(g.and_then(|g| g.corr_before)),
+        num(g.and_then(|g| g.corr_after)),
+        num(g.and_then(|g| g.jacobian_min)),
+        num(g.map(|g| g.folded)),
     ]
 }
 

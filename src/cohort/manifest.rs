@@ -35,6 +35,8 @@ struct RawManifest {
     align: AlignSettings,
     #[serde(default)]
     resample: RawResample,
+    #[serde(default)]
+    register: RawRegister,
 }
 
 #[derive(Debug, Clone, Deserialize)]
@@ -183,6 +185,44 @@ struct RawResample {
     method: std::collections::BTreeMap<String, String>,
 }
 
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawRegister {
+    #[serde(default)]
+    enabled: bool,
+    #[serde(default)]
+    template: Option<String>,
+    #[serde(default)]
+    features: Option<Vec<String>>,
+    #[serde(default)]
+    step: Option<f64>,
+    #[serde(default)]
+    tolerance: Option<f64>,
+}
+
+/// Options of the optional registration stage (`[register]`), between
+/// align and resample. Present in a [`Manifest`] only when enabled.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct RegisterSettings {
+    /// Template folder written by `horosphere register-template`
+    /// (absolute after validation); `{hemi}` stands for `L` or `R`.
+    pub template: PathBuf,
+    /// Input map suffixes used as features (among `inputs.maps`).
+    pub features: Vec<String>,
+    /// Longest demons update per iteration, fraction of the control spacing.
+    pub step: f64,
+    /// A stage of the registration stops when the residual falls by less
+    /// than this fraction in one iteration.
+    pub tolerance: f64,
+}
+
+impl RegisterSettings {
+    /// The template folder for hemisphere `hemi` (`{hemi}` replaced).
+    pub fn template_for(&self, hemi: &str) -> PathBuf {
+        PathBuf::from(self.template.to_string_lossy().replace("{hemi}", hemi))
+    }
+}
+
 /// Options of the resample stage (`[resample]`).
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct ResampleSettings {
@@ -221,6 +261,8 @@ pub struct Manifest {
     pub map: MapSettings,
     pub align: AlignSettings,
     pub resample: ResampleSettings,
+    /// The registration stage; `None` when `[register] enabled = false`.
+    pub register: Option<RegisterSettings>,
 }
 
 fn bad(path: &Path, key: &str, message: impl Into<String>) -> Error {
@@ -243,6 +285,94 @@ fn check_suffix(path: &Path, key: &str, s: &str) -> Result<()> {
             format!("`{s}`: expected a file suffix of letters and digits (e.g. white, thickness)"),
         ))
     }
+}
+
+/// Validate `[register]`: when enabled, a template folder that exists for
+/// every hemisphere (its content is checked when the run reads it) and
+/// features among the input maps.
+fn register_settings(
+    path: &Path,
+    raw: &RawRegister,
+    maps: &[String],
+    hemispheres: &[String],
+    resolve: &dyn Fn(&str) -> PathBuf,
+) -> Result<Option<RegisterSettings>> {
+    if !raw.enabled {
+        return Ok(None);
+    }
+    let Some(text) = raw.template.as_deref().filter(|t| !t.trim().is_empty()) else {
+        return Err(bad(
+            path,
+            "register.template",
+            "missing; expected the folder written by `horosphere register-template` (may contain {hemi})",
+        ));
+    };
+    let template = resolve(text);
+    for h in hemispheres {
+        let dir = PathBuf::from(template.to_string_lossy().replace("{hemi}", h));
+        if !dir.join("template.json").is_file() {
+            return Err(bad(
+                path,
+                "register.template",
+                format!(
+                    "`{}` (hemisphere {h}) has no template.json; expected a folder written by `horosphere register-template`",
+                    dir.display()
+                ),
+            ));
+        }
+    }
+    let features = raw
+        .features
+        .clone()
+        .unwrap_or_else(|| vec!["depth".to_string()]);
+    if features.is_empty() {
+        return Err(bad(
+            path,
+            "register.features",
+            "empty; expected at least one map suffix (e.g. [\"depth\"])",
+        ));
+    }
+    for (i, f) in features.iter().enumerate() {
+        if !maps.contains(f) {
+            return Err(bad(
+                path,
+                "register.features",
+                format!(
+                    "`{f}` is not one of inputs.maps ({}); expected the suffix of an input map",
+                    maps.join(", ")
+                ),
+            ));
+        }
+        if features[..i].contains(f) {
+            return Err(bad(
+                path,
+                "register.features",
+                format!("`{f}` is listed twice"),
+            ));
+        }
+    }
+    let step = raw.step.unwrap_or(0.25);
+    if !(step.is_finite() && step > 0.0 && step <= 1.0) {
+        return Err(bad(
+            path,
+            "register.step",
+            format!("{step}; expected a fraction of the control spacing in (0, 1]"),
+        ));
+    }
+    let tolerance = raw.tolerance.unwrap_or(1e-4);
+    if !(tolerance.is_finite() && tolerance >= 0.0) {
+        return Err(bad(
+            path,
+            "register.tolerance",
+            format!("{tolerance}; expected a number >= 0"),
+        ));
+    }
+    Ok(Some(RegisterSettings {
+        template,
+        features,
+        step,
+        tolerance,
+    }))
 }
 
 impl Manifest {
@@ -472,6 +602,13 @@ impl Manifest {
                 ));
             }
         }
+        let register = register_settings(
+            path,
+            &raw.register,
+            &raw.inputs.maps,
+            &hemispheres,
+            &resolve,
+        )?;
         Ok(Manifest {
             path: path.to_path_buf(),
             root: resolve(&raw.study.root),
@@ -490,6 +627,7 @@ impl Manifest {
                 fwhm_mm,
                 method: raw.resample.method,
             },
+            register,
         })
     }
 
@@ -564,5 +702,37 @@ method = { regions = "majority" }
         let e =
             Manifest::parse(&GOOD.replace("template = \"tpl-{hemi}.toml\"", ""), p).unwrap_err();
         assert!(e.to_string().contains("inputs.landmarks"), "{e}");
+    }
+
+    #[test]
+    fn register_section_defaults_off_and_resolves_the_template_per_hemisphere() {
+        let p = Path::new("/study/pipelines/m.toml");
+        assert_eq!(Manifest::parse(GOOD, p).unwrap().register, None);
+        let off = GOOD.to_string() + "[register]\nenabled = false\ntemplate = \"x\"\n";
+        assert_eq!(Manifest::parse(&off, p).unwrap().register, None);
+        let dir =
+            std::env::temp_dir().join(format!("horosphere-manifest-reg-{}", std::process::id()));
+        std::fs::create_dir_all(dir.join("tpl-L")).unwrap();
+        std::fs::write(dir.join("tpl-L/template.json"), "{}").unwrap();
+        let on = GOOD.replace(
+            "\"thickness\", \"regions\"",
+            "\"thickness\", \"regions\", \"depth\"",
+        ) + "[register]\nenabled = true\ntemplate = \"tpl-{hemi}\"\nstep = 0.2\n";
+        let m = Manifest::parse(&on, &dir.join("m.toml")).unwrap();
+        let r = m.register.unwrap();
+        assert_eq!(r.features, vec!["depth".to_string()]);
+        assert_eq!(r.step, 0.2);
+        assert_eq!(r.tolerance, 1e-4);
+        assert_eq!(r.template_for("L"), dir.join("tpl-L"));
+        let e = Manifest::parse(
+            &on.replace("[\"L\"]", "[\"L\", \"R\"]"),
+            &dir.join("m.toml"),
+        )
+        .unwrap_err();
+        assert!(e.to_string().contains("tpl-R"), "{e}");
+        let e =
+            Manifest::parse(&on.replace("\"depth\"", "\"sulc\""), &dir.join("m.toml")).unwrap_err();
+        assert!(e.to_string().contains("register.features"), "{e}");
+        let _ = std::fs::remove_dir_all(&dir);
     }
 }

@@ -90,6 +90,7 @@ pub fn shared_data(m: &Manifest) -> Result<Shared> {
         target: mesh.positions,
         space: target.space_label(),
         target_file,
+        register: super::unit::register_templates(m)?,
     })
 }
 

@@ -1,6 +1,6 @@
 //! One subject and hemisphere through the whole chain: read, inspect,
-//! repair, map, align, resample; outputs with provenance sidecars and the
-//! unit record.
+//! repair, map, align, register (optional, `[register]` in the manifest),
+//! resample; outputs with provenance sidecars and the unit record.
 //!
 //! In: a [`Unit`] (its input files), the [`Manifest`] and the run's
 //! [`Shared`] data (target sphere). Out: files under
@@ -29,7 +29,9 @@
 //! the exact discrete conformal map of Bobenko, Pinkall and Springborn
 //! (Geom. Topol. 19, 2015) and Springborn (Discrete Comput. Geom. 64, 2020)
 //! ([`crate::map`]), Moebius centring (Springborn, Math. Z. 249, 2005) and
-//! landmark fits ([`crate::align`]), resampling and heat-kernel smoothing
+//! landmark fits ([`crate::align`]), log-domain diffeomorphic demons on the
+//! sphere (Vercauteren, Pennec, Perchant, Ayache, NeuroImage 45, 2009)
+//! ([`crate::register`]), resampling and heat-kernel smoothing
 //! (Chung et al., NeuroImage 25, 2005) ([`crate::resample`]).
 
 use super::discover::Unit;
@@ -61,6 +63,71 @@ pub struct Shared {
     pub space: String,
     /// The target file and its hash, when the target is a file.
     pub target_file: Option<(PathBuf, String)>,
+    /// Registration templates per hemisphere (empty when the registration
+    /// stage is off).
+    pub register: Vec<RegisterTemplate>,
+}
+
+/// A registration template read for one hemisphere.
+#[derive(Debug, Clone)]
+pub struct RegisterTemplate {
+    /// `L` or `R`.
+    pub hemi: String,
+    pub template: crate::register::Template,
+    /// Its files with their hashes (unit inputs, so a changed template
+    /// recomputes the units).
+    pub files: Vec<FileHash>,
+}
+
+/// Read the registration template of every hemisphere of the manifest
+/// (none when the stage is off). Errors name the template file at fault;
+/// a template whose features differ from `[register] features` is refused.
+pub fn register_templates(m: &Manifest) -> Result<Vec<RegisterTemplate>> {
+    let Some(r) = &m.register else {
+        return Ok(Vec::new());
+    };
+    let mut out = Vec::new();
+    for hemi in &m.hemispheres {
+        let dir = r.template_for(hemi);
+        let template = crate::register::template::read_template(&dir)?;
+        let mut have = template.names.clone();
+        let mut want = r.features.clone();
+        have.sort();
+        want.sort();
+        if have != want {
+            return Err(Error::bad_file(
+                &dir.join("template.json"),
+                "features",
+                format!(
+                    "the template has features [{}]; expected those of [register] features in {} ([{}])",
+                    template.names.join(", "),
+                    m.path.display(),
+                    r.features.join(", ")
+                ),
+            ));
+        }
+        let mut names = vec!["template.json".to_string(), "sphere.surf.gii".to_string()];
+        names.extend(
+            template
+                .names
+                .iter()
+                .map(|n| crate::register::template::feature_file(n)),
+        );
+        let mut files = Vec::with_capacity(names.len());
+        for n in names {
+            let p = dir.join(&n);
+            files.push(FileHash {
+                path: relative(&p, &m.root),
+                sha256: sha256_file(&p)?,
+            });
+        }
+        out.push(RegisterTemplate {
+            hemi: hemi.clone(),
+            template,
+            files,
+        });
+    }
+    Ok(out)
 }
 
 /// Topology figures of the input surface (from inspection).
@@ -159,10 +226,42 @@ pub struct ResampleFigures {
     pub missing_target_vertices: usize,
 }
 
+/// Correlation of one feature with the registration template.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct RegisterFeatureFigure {
+    pub name: String,
+    /// Area-weighted Pearson correlation on the template vertices, on the
+    /// aligned sphere (before the warp).
+    pub before: Option<f64>,
+    /// The same after the warp.
+    pub after: Option<f64>,
+}
+
+/// The registration to the folding template (see [`crate::register`]).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct RegisterFigures {
+    pub template_level: u32,
+    pub features: Vec<RegisterFeatureFigure>,
+    /// Mean over the features of `before` / `after`.
+    pub corr_before: Option<f64>,
+    pub corr_after: Option<f64>,
+    /// Range of the signed area ratios of the template triangles under the warp.
+    pub jacobian_min: Option<f64>,
+    pub jacobian_max: Option<f64>,
+    /// Template triangles folded by the warp plus subject triangles turned
+    /// over (must be 0).
+    pub folded: usize,
+    /// Demons iterations kept, over all stages.
+    pub iterations: usize,
+    pub mean_displacement_deg: Option<f64>,
+    pub max_displacement_deg: Option<f64>,
+}
+
 /// One output file of a unit.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct OutputEntry {
-    /// `repaired-surface`, `sphere`, `aligned-sphere` or `resampled-map`.
+    /// `repaired-surface`, `sphere`, `aligned-sphere`, `registered-sphere`
+    /// or `resampled-map`.
     pub role: String,
     /// The map suffix, for resampled maps.
     pub map: Option<String>,
@@ -192,12 +291,19 @@ pub struct UnitRecord {
     pub repair: Option<RepairFigures>,
     pub map: Option<MapFigures>,
     pub align: Option<AlignFigures>,
+    /// Only when the registration stage is on (absent from the JSON
+    /// otherwise, so records of runs without it keep their bytes).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub register: Option<RegisterFigures>,
     pub resample: Vec<ResampleFigures>,
     pub outputs: Vec<OutputEntry>,
 }
 
 /// The stages, in order (names used in records and progress).
-pub const STAGES: [&str; 6] = ["read", "inspect", "repair", "map", "align", "resample"];
+/// `register` runs only when the manifest turns it on.
+pub const STAGES: [&str; 7] = [
+    "read", "inspect", "repair", "map", "align", "register", "resample",
+];
 
 fn fin(x: f64) -> Option<f64> {
     x.is_finite().then_some(x)
@@ -237,6 +343,11 @@ fn output_names(
             "aligned-sphere".to_string(),
             None,
             format!("{dir}/{stem}_space-individual_desc-aligned_sphere.surf.gii"),
+        ),
+        (
+            "registered-sphere".to_string(),
+            None,
+            format!("{dir}/{stem}_space-individual_desc-registered_sphere.surf.gii"),
         ),
     ];
     for suffix in &m.maps {
@@ -280,6 +391,9 @@ pub fn unit_inputs(m: &Manifest, u: &Unit, shared: &Shared) -> (Vec<FileHash>, s
             sha256: h.clone(),
         });
     }
+    if let Some(t) = shared.register.iter().find(|t| t.hemi == u.hemi) {
+        inputs.extend(t.files.iter().cloned());
+    }
     let mut resample = serde_json::json!({
         "target": if shared.target_file.is_some() { format!("file:{}", shared.space) } else { m.resample.target.clone() },
         "fwhm_mm": m.resample.fwhm_mm,
@@ -288,7 +402,7 @@ pub fn unit_inputs(m: &Manifest, u: &Unit, shared: &Shared) -> (Vec<FileHash>, s
     if let Some(obj) = resample.as_object_mut() {
         obj.insert("space".into(), shared.space.clone().into());
     }
-    let options = serde_json::json!({
+    let mut options = serde_json::json!({
         "inputs": {
             "surface": m.surface,
             "maps": m.maps,
@@ -300,6 +414,17 @@ pub fn unit_inputs(m: &Manifest, u: &Unit, shared: &Shared) -> (Vec<FileHash>, s
         "align": m.align,
         "resample": resample,
     });
+    // Only when on, so the keys of runs without registration do not change.
+    if let (Some(r), Some(obj)) = (&m.register, options.as_object_mut()) {
+        obj.insert(
+            "register".into(),
+            serde_json::json!({
+                "features": r.features,
+                "step": r.step,
+                "tolerance": r.tolerance,
+            }),
+        );
+    }
     (inputs, options)
 }
 
@@ -393,6 +518,7 @@ pub fn run_unit(
         repair: None,
         map: None,
         align: None,
+        register: None,
         resample: Vec::new(),
         outputs: Vec::new(),
     };
@@ -522,7 +648,9 @@ fn put(
 
 /// Options of the stages up to `stage` (from the record's options).
 fn options_upto(all: &serde_json::Value, stage: &str) -> serde_json::Value {
-    let order = ["inputs", "inspect", "repair", "map", "align", "resample"];
+    let order = [
+        "inputs", "inspect", "repair", "map", "align", "register", "resample",
+    ];
     let mut out = serde_json::Map::new();
     for s in order {
         if let Some(v) = all.get(s) {
@@ -844,6 +972,16 @@ fn compute(
     )
     .map_err(at("align"))?;
 
+    // Register (optional): warp the aligned sphere to the folding template.
+    let aligned = match shared.register.iter().find(|t| t.hemi == u.hemi) {
+        Some(t) if m.register.is_some() => {
+            progress("register");
+            register_stage(m, u, t, &mesh, aligned, &maps, &origin, record)
+                .map_err(at("register"))?
+        }
+        _ => aligned,
+    };
+
     // Resample.
     progress("resample");
     if maps.is_empty() {
@@ -953,6 +1091,179 @@ fn compute(
         .map_err(at("resample"))?;
     }
     finish(record, repaired)
+}
+
+/// The registration stage: the unit's feature maps (carried to the
+/// repaired surface; values at vertices repair created are filled from
+/// their neighbours) drive [`crate::register::register`] of the aligned
+/// sphere to the hemisphere's template. Writes the warped sphere and puts
+/// the report figures in the record; returns the warped positions.
+#[allow(clippy::too_many_arguments)]
+fn register_stage(
+    m: &Manifest,
+    u: &Unit,
+    t: &RegisterTemplate,
+    mesh: &TriMesh,
+    aligned: Vec<Vec3>,
+    maps: &[InputMap],
+    origin: &[Option<u32>],
+    record: &mut UnitRecord,
+) -> Result<Vec<Vec3>> {
+    let Some(settings) = &m.register else {
+        return Ok(aligned);
+    };
+    let mut features = Vec::with_capacity(t.template.names.len());
+    for name in &t.template.names {
+        let k = u
+            .maps
+            .iter()
+            .position(|(s, _)| s == name)
+            .ok_or_else(|| {
+                Error::Invalid(format!(
+                    "feature `{name}`: no input map with this suffix for this unit; expected one of inputs.maps"
+                ))
+            })?;
+        let path = &u.maps[k].1;
+        let values = match maps.get(k).map(|mp| &mp.values) {
+            Some(MapValues::Continuous(v)) => carry_values(v, origin),
+            _ => {
+                return Err(Error::bad_file(
+                    path,
+                    "data array",
+                    format!("feature `{name}` is a label map; expected a map of numbers"),
+                ))
+            }
+        };
+        features.push(fill_missing(&values, &mesh.faces).ok_or_else(|| {
+            Error::bad_file(
+                path,
+                "data array",
+                format!("feature `{name}` has no finite value; expected a map of numbers"),
+            )
+        })?);
+    }
+    let subject = TriMesh {
+        positions: aligned,
+        faces: mesh.faces.clone(),
+    };
+    let opts = crate::register::RegisterOptions {
+        step: settings.step,
+        tolerance: settings.tolerance,
+        ..crate::register::RegisterOptions::default()
+    };
+    let reg =
+        crate::register::register(&subject, &features, &t.template, &opts).map_err(
+            |e| match e {
+                Error::Invalid(msg) => Error::Invalid(format!("{}: {msg}", u.stem())),
+                other => other,
+            },
+        )?;
+    let rep = &reg.report;
+    let nf = rep.features.len().max(1) as f64;
+    record.register = Some(RegisterFigures {
+        template_level: rep.template_level,
+        features: rep
+            .features
+            .iter()
+            .map(|f| RegisterFeatureFigure {
+                name: f.name.clone(),
+                before: fin(f.before),
+                after: fin(f.after),
+            })
+            .collect(),
+        corr_before: fin(rep.features.iter().map(|f| f.before).sum::<f64>() / nf),
+        corr_after: fin(rep.features.iter().map(|f| f.after).sum::<f64>() / nf),
+        jacobian_min: fin(rep.jacobian.min),
+        jacobian_max: fin(rep.jacobian.max),
+        folded: rep.jacobian.folded + rep.subject_folded,
+        iterations: rep.stages.iter().map(|s| s.iterations).sum(),
+        mean_displacement_deg: fin(rep.mean_displacement_deg),
+        max_displacement_deg: fin(rep.max_displacement_deg),
+    });
+    let name = format!(
+        "{}/{}_space-individual_desc-registered_sphere.surf.gii",
+        u.sub(),
+        u.stem()
+    );
+    let bytes = gifti_bytes(&Gifti::from_mesh(&reg.warped))?;
+    let opts = options_upto(&record.options, "register");
+    put(
+        m,
+        record,
+        "registered-sphere",
+        None,
+        &name,
+        &bytes,
+        "register",
+        opts,
+    )?;
+    Ok(reg.warped.positions)
+}
+
+/// Carry numbers from the input vertices to the repaired ones (NaN for
+/// vertices repair created).
+fn carry_values(v: &[f64], origin: &[Option<u32>]) -> Vec<f64> {
+    origin
+        .iter()
+        .map(|o| {
+            o.and_then(|i| v.get(i as usize).copied())
+                .unwrap_or(f64::NAN)
+        })
+        .collect()
+}
+
+/// Fill non-finite values by repeated averaging of finite neighbours (in
+/// vertex order, so the result is deterministic); `None` when no value is
+/// finite.
+fn fill_missing(values: &[f64], faces: &[[u32; 3]]) -> Option<Vec<f64>> {
+    let mut v = values.to_vec();
+    if v.iter().all(|x| x.is_finite()) {
+        return Some(v);
+    }
+    if !v.iter().any(|x| x.is_finite()) {
+        return None;
+    }
+    let mut nbrs: Vec<Vec<u32>> = vec![Vec::new(); v.len()];
+    for f in faces {
+        for k in 0..3 {
+            let (a, b) = (f[k] as usize, f[(k + 1) % 3]);
+            if a < nbrs.len() && (b as usize) < nbrs.len() {
+                nbrs[a].push(b);
+                nbrs[b as usize].push(f[k]);
+            }
+        }
+    }
+    loop {
+        let mut next = v.clone();
+        let mut changed = false;
+        for (i, x) in v.iter().enumerate() {
+            if x.is_finite() {
+                continue;
+            }
+            let (s, c) = nbrs[i]
+                .iter()
+                .map(|&j| v[j as usize])
+                .filter(|y| y.is_finite())
+                .fold((0.0, 0usize), |(s, c), y| (s + y, c + 1));
+            if c > 0 {
+                next[i] = s / c as f64;
+                changed = true;
+            }
+        }
+        v = next;
+        if !changed {
+            break;
+        }
+    }
+    // Vertices not connected to any finite value: the mean.
+    let finite: Vec<f64> = v.iter().copied().filter(|x| x.is_finite()).collect();
+    let mean = finite.iter().sum::<f64>() / finite.len() as f64;
+    for x in &mut v {
+        if !x.is_finite() {
+            *x = mean;
+        }
+    }
+    Some(v)
 }
 
 fn finish(record: &mut UnitRecord, repaired: bool) -> std::result::Result<(), StageError> {
