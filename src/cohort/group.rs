@@ -26,7 +26,7 @@ use crate::resample::matrix::{cohort_gifti, CohortColumn};
 use std::path::PathBuf;
 
 /// Columns of the QC table, in order (documented in docs/user-guide.md).
-pub const QC_COLUMNS: [&str; 41] = [
+pub const QC_COLUMNS: [&str; 45] = [
     "subject",
     "hemi",
     "status",
