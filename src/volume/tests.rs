@@ -169,7 +169,7 @@ fn euler_6_18(dims: [usize; 3], fg: &[bool]) -> i64 {
                         }
                     }
                     if all {
-                        chi += if dim % 2 == 0 { 1 } else { -1 };
+                        chi += if dim.is_multiple_of(2) { 1 } else { -1 };
                     }
                 }
                 // The ring correction on the 2x2x2 block at (x, y, z).
