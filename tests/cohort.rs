@@ -548,6 +548,28 @@ fn the_run_writes_a_report_with_one_row_per_unit() {
     );
     assert!(html.contains("not a medical device"));
     assert!(html.contains("trained analyst"));
+    // Every cut handle shows in the topology findings with its loop length
+    // and centre, as in the QC table (issue #10).
+    let topo = html
+        .split("id=\"topology-table\"")
+        .nth(1)
+        .and_then(|t| t.split("</table>").next())
+        .expect("a topology table");
+    let cut: Vec<_> = rows
+        .iter()
+        .filter(|r| r["handles_cut"] != "" && r["handles_cut"] != "0")
+        .collect();
+    assert!(!cut.is_empty(), "the test cohort plants a handle");
+    for r in cut {
+        assert!(
+            topo.contains(&format!(">{}</td>", r["handle_loops_mm"])),
+            "{r:?}"
+        );
+        assert!(
+            topo.contains(&format!(">{}</td>", r["handle_locations"])),
+            "{r:?}"
+        );
+    }
     assert!(html.contains("data-protection"));
     // Two picture strips per finished unit, plus histograms and colour bars.
     let strips = html.matches("alt=\"area distortion of ").count();

@@ -270,6 +270,10 @@ Units whose input was ready to map as given are summarised in one line.</p>\n");
             ("vertices_merged", "vertices merged"),
             ("faces_dropped", "faces dropped"),
             ("faces_reoriented", "faces reoriented"),
+            ("handles_found", "handles found"),
+            ("handles_cut", "handles cut"),
+            ("handle_loops_mm", "handle loops (mm)"),
+            ("handle_locations", "handle centres x;y;z (mm)"),
         ];
         let with: Vec<&UnitEntry> = self
             .cohort
