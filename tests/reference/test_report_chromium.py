@@ -60,6 +60,8 @@ surface = "white"
 maps = ["thickness", "depth", "regions"]
 landmarks = "landmarks"
 template = "{REPO / 'pipelines'}/demo-template-{{hemi}}.toml"
+[repair]
+max_handle_mm = 1.0   # leave the planted handle uncut, so the report shows a failed unit
 [map]
 pole = "repair-added"
 [resample]
@@ -134,7 +136,7 @@ def test_report_opens_cleanly_in_chromium(cohort, which, tmp_path):
     # One row per unit, in QC-table order, failed ones included.
     assert rows == units
     failed = [r for r in qc if r["status"] == "failed"]
-    assert len(failed) >= 1, "the generator plants a handle, so at least one unit fails"
+    assert len(failed) >= 1, "max_handle_mm = 1 leaves the planted handle uncut, so that unit fails"
     # Every image is an inline PNG that decodes to a non-empty picture.
     assert len(images) >= 2 * (len(units) - len(failed))
     for im in images:
