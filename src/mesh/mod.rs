@@ -9,6 +9,7 @@
 //! the vertex count and every coordinate is finite; nothing else is assumed
 //! (inspect reports the rest, repair fixes what it can).
 
+pub mod curvature;
 pub mod halfedge;
 pub mod intersect;
 pub mod topology;

@@ -223,17 +223,41 @@ pub struct JacobianSummary {
     pub triangles: usize,
 }
 
+/// Signed area of triangle `t` of `p`, the sign taken from the outward
+/// direction (the triangle's centroid).
+fn signed_area(p: &[Vec3], t: &[u32; 3]) -> f64 {
+    let (a, b, c) = (p[t[0] as usize], p[t[1] as usize], p[t[2] as usize]);
+    let n = cross(sub(b, a), sub(c, a));
+    let centroid = [a[0] + b[0] + c[0], a[1] + b[1] + c[1], a[2] + b[2] + c[2]];
+    let s = dot(n, centroid);
+    0.5 * norm(n) * s.signum()
+}
+
+/// Indices of the triangles of `faces` whose signed area ratio
+/// (`after` over `before`) is at most `min_ratio` (triangles of zero area
+/// before are left out, as in [`jacobian`]).
+pub fn collapsed_faces(
+    faces: &[[u32; 3]],
+    before: &[Vec3],
+    after: &[Vec3],
+    min_ratio: f64,
+) -> Vec<usize> {
+    faces
+        .par_iter()
+        .enumerate()
+        .with_min_len(1024)
+        .filter_map(|(i, t)| {
+            let a0 = signed_area(before, t);
+            (a0 != 0.0 && signed_area(after, t) / a0 <= min_ratio).then_some(i)
+        })
+        .collect()
+}
+
 /// Per triangle of `faces`, the ratio of the signed area of the warped
 /// triangle (points `after`) to that of the original (points `before`), the
 /// sign taken from the outward direction (the triangle's centroid).
 pub fn jacobian(faces: &[[u32; 3]], before: &[Vec3], after: &[Vec3]) -> JacobianSummary {
-    let signed = |p: &[Vec3], t: &[u32; 3]| {
-        let (a, b, c) = (p[t[0] as usize], p[t[1] as usize], p[t[2] as usize]);
-        let n = cross(sub(b, a), sub(c, a));
-        let centroid = [a[0] + b[0] + c[0], a[1] + b[1] + c[1], a[2] + b[2] + c[2]];
-        let s = dot(n, centroid);
-        0.5 * norm(n) * s.signum()
-    };
+    let signed = signed_area;
     // Triangles of zero area before the warp have no ratio and are left out.
     let ratios: Vec<f64> = faces
         .par_iter()

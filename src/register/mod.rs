@@ -58,6 +58,7 @@
 //! diffeomorphic landmark-free surface registration", IEEE TMI 29 (2010)
 //! 650-668; the design and names here are ours.
 
+pub mod embed;
 pub mod field;
 pub mod grid;
 pub mod template;
@@ -67,6 +68,7 @@ use crate::mesh::{dot, scale, TriMesh, Vec3};
 use crate::resample::locate::Locator;
 use crate::resample::smooth::{smooth_maps, SmoothOptions};
 use crate::resample::target::directions;
+use embed::{embed_subject, EmbedReport};
 use field::{jacobian, smooth_vectors, JacobianSummary, VelocityField};
 use grid::{n_vertices, tangent, IcoGrid};
 use rayon::prelude::*;
@@ -175,8 +177,11 @@ pub struct RegisterReport {
     pub features: Vec<FeatureCorrelation>,
     /// Signed area ratios of the template triangles under `phi`.
     pub jacobian: JacobianSummary,
-    /// Subject sphere triangles turned over by the warp (must be 0).
+    /// Subject sphere triangles turned over by the warp (0: the warp is
+    /// softened where they would be, see `embed`).
     pub subject_folded: usize,
+    /// How the warp was softened to keep the subject mesh embedded.
+    pub embed: EmbedReport,
     /// Mean and largest displacement of the subject's vertices, degrees.
     pub mean_displacement_deg: f64,
     pub max_displacement_deg: f64,
@@ -603,7 +608,9 @@ pub fn register_sampled(
             residual_end: e,
         });
     }
-    // Final warp, correspondence and features.
+    // Soften the warp where the subject's own triangles cannot follow it
+    // (module `embed`), then the final warp, correspondence and features.
+    let (moved, embed) = embed_subject(grid, &mut v, &subject.directions, &sphere.faces);
     let n_steps = v.steps(grid);
     let phi = v.flow(grid, x, 1.0, n_steps);
     let warped_features = pull_back(grid, &subject.on_grid, &phi);
@@ -618,7 +625,6 @@ pub fn register_sampled(
         })
         .collect();
     let jac = jacobian(&grid.faces[level as usize], x, &phi);
-    let moved = v.flow(grid, &subject.directions, -1.0, n_steps);
     let subj_jac = jacobian(&sphere.faces, &subject.directions, &moved);
     let disp: Vec<f64> = subject
         .directions
@@ -636,6 +642,7 @@ pub fn register_sampled(
         features,
         jacobian: jac,
         subject_folded: subj_jac.folded,
+        embed,
         mean_displacement_deg: disp.iter().sum::<f64>() / disp.len().max(1) as f64,
         max_displacement_deg: disp.iter().copied().fold(0.0, f64::max),
         stages: stage_reports,
