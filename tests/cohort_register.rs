@@ -153,12 +153,34 @@ fn registration_stage_raises_the_feature_correlation_without_folds_for_any_threa
 
     // Template from the aligned spheres and the native depth maps (no
     // defects: the aligned sphere has the native vertex order).
-    let mut table = String::from("subject,sphere,depth\n");
+    // The second feature is the mean curvature of the native surface,
+    // written by `horosphere curvature` (the run computes the same values
+    // itself for the built-in feature `mean_curvature`).
+    let mut table = String::from("subject,sphere,depth,mean_curvature\n");
     for s in &subs {
+        let curv = base.join(format!("{s}_curv.shape.gii"));
+        let summary: serde_json::Value = serde_json::from_str(&ok(Command::new(BIN)
+            .arg("curvature")
+            .arg(study.join(format!("{s}/{s}_hemi-L_white.surf.gii")))
+            .arg("-o")
+            .arg(&curv)
+            .arg("--json")
+            .output()
+            .unwrap()))
+        .unwrap();
+        // A closed folded surface of about brain size: the area-weighted
+        // mean curvature is positive and of the order of 1/(50 mm).
+        let hm = summary["area_weighted_mean"].as_f64().unwrap();
+        assert!(hm > 0.005 && hm < 0.05, "{s}: mean curvature {hm}");
+        assert!(
+            summary["min"].as_f64().unwrap() < 0.0,
+            "{s}: no concave vertex"
+        );
         table.push_str(&format!(
-            "{s},{}/{s}/{s}_hemi-L_space-individual_desc-aligned_sphere.surf.gii,{}/{s}/{s}_hemi-L_depth.shape.gii\n",
+            "{s},{}/{s}/{s}_hemi-L_space-individual_desc-aligned_sphere.surf.gii,{}/{s}/{s}_hemi-L_depth.shape.gii,{}\n",
             plain_out.display(),
-            study.display()
+            study.display(),
+            curv.display()
         ));
     }
     std::fs::write(base.join("table.csv"), table).unwrap();
@@ -171,7 +193,7 @@ fn registration_stage_raises_the_feature_correlation_without_folds_for_any_threa
         .output()
         .unwrap());
 
-    let section = "[register]\nenabled = true\ntemplate = \"tpl-{hemi}\"\nfeatures = [\"depth\"]\n";
+    let section = "[register]\nenabled = true\ntemplate = \"tpl-{hemi}\"\nfeatures = [\"depth\", \"mean_curvature\"]\n";
     let out1 = base.join("reg1");
     let out2 = base.join("reg2");
     let m1 = manifest(&base, "reg1.toml", &study, &out1, section);
@@ -201,6 +223,18 @@ fn registration_stage_raises_the_feature_correlation_without_folds_for_any_threa
         assert!(t1.contains_key(&format!(
             "{stem}_space-individual_desc-registered_sphere.json"
         )));
+        // The maps are resampled from the registered sphere and named so.
+        for map in ["thickness", "depth"] {
+            assert!(
+                t1.contains_key(&format!(
+                    "{stem}_space-icosphere3_desc-registered_{map}.shape.gii"
+                )),
+                "{s}: registered {map} missing"
+            );
+            assert!(!t1.contains_key(&format!(
+                "{stem}_space-icosphere3_desc-aligned_{map}.shape.gii"
+            )));
+        }
         // The registered sphere differs from the aligned one (it moved).
         assert!(
             t1[&sphere] != t1[&format!("{stem}_space-individual_desc-aligned_sphere.surf.gii")]
@@ -220,6 +254,11 @@ fn registration_stage_raises_the_feature_correlation_without_folds_for_any_threa
         assert!(jmin > 0.0, "{s}: Jacobian min {jmin}");
         assert!(r["iterations"].as_u64().unwrap() > 0, "{s}");
         assert_eq!(record["options"]["register"]["features"][0], "depth");
+        assert_eq!(
+            record["options"]["register"]["features"][1],
+            "mean_curvature"
+        );
+        assert_eq!(r["features"].as_array().map(|a| a.len()), Some(2), "{r}");
         // QC columns carry the record's figures.
         assert_eq!(row["register_folded"], "0");
         let qb: f64 = row["register_corr_before"].parse().unwrap();

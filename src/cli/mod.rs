@@ -8,6 +8,7 @@ use std::process::ExitCode;
 
 mod align;
 mod convert;
+mod curvature;
 mod demo;
 mod extract;
 mod inspect;
@@ -64,6 +65,8 @@ enum Command {
     Extract(extract::ExtractArgs),
     /// Sample a volume (NIfTI) at the vertices of a surface, optionally along normals.
     Sample(sample::SampleArgs),
+    /// Mean curvature of a surface at every vertex (a folding feature for `register`).
+    Curvature(curvature::CurvatureArgs),
     /// Vertex-wise linear model on a cohort matrix: effect, se, t, p, BH q and Cohen's d maps.
     Stats(stats::StatsArgs),
     /// Write the cohort QC report: one self-contained HTML file with tables, pictures and histograms.
@@ -91,6 +94,7 @@ pub fn main() -> ExitCode {
         Command::Report(args) => report::run(args),
         Command::Extract(args) => extract::run(args),
         Command::Sample(args) => sample::run(args),
+        Command::Curvature(args) => curvature::run(args),
     };
     match result {
         Ok(code) => code,

@@ -20,7 +20,7 @@ use horosphere::register::template::{
     build_template, read_feature, read_table, read_template, write_template, TemplateOptions,
     TemplateSubject,
 };
-use horosphere::register::{register, RegisterOptions};
+use horosphere::register::{register_observed, RegisterOptions};
 use horosphere::{Error, Result};
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
@@ -163,13 +163,41 @@ pub fn run_register(args: &RegisterArgs) -> Result<ExitCode> {
     }
     let template = read_template(&args.template)?;
     let subject = load(&args.sphere, &args.features)?;
-    let reg = register(
+    // A bar over the stages' iterations (stderr; hidden when not a
+    // terminal). Stages may stop early, so the bar jumps at stage ends.
+    let opts = args.tuning.options();
+    let stages = if opts.stages.is_empty() {
+        horosphere::register::default_stages(template.level)
+    } else {
+        opts.stages.clone()
+    };
+    let total: usize = stages.iter().map(|s| s.iterations).sum();
+    let bar = indicatif::ProgressBar::new(total as u64);
+    bar.set_style(
+        indicatif::ProgressStyle::with_template("{msg} [{bar:30}] {pos}/{len} iterations")
+            .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
+    );
+    let done_before: Vec<usize> = stages
+        .iter()
+        .scan(0, |acc, s| {
+            let here = *acc;
+            *acc += s.iterations;
+            Some(here)
+        })
+        .collect();
+    let observe = |p: horosphere::register::Progress| {
+        bar.set_message(format!("register: stage {}/{}", p.stage, p.stages));
+        bar.set_position((done_before[p.stage - 1] + p.iteration) as u64);
+    };
+    let reg = register_observed(
         &subject.sphere,
         &subject.features,
         &template,
-        &args.tuning.options(),
+        &opts,
+        &observe,
     )
     .map_err(|e| e.in_file(&args.sphere, "registration"))?;
+    bar.finish_and_clear();
     horosphere::io::write_mesh(&args.output, &reg.warped)?;
     let text = serde_json::to_string_pretty(&reg.report)
         .map_err(|e| Error::Invalid(format!("cannot serialise the report: {e}")))?;

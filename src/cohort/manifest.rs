@@ -287,9 +287,14 @@ fn check_suffix(path: &Path, key: &str, s: &str) -> Result<()> {
     }
 }
 
+/// The registration feature computed from each unit's (repaired) surface
+/// when no input map has this suffix: the mean curvature
+/// ([`crate::mesh::curvature::mean_curvature`]).
+pub const BUILTIN_MEAN_CURVATURE: &str = "mean_curvature";
+
 /// Validate `[register]`: when enabled, a template folder that exists for
 /// every hemisphere (its content is checked when the run reads it) and
-/// features among the input maps.
+/// features among the input maps (or the built-in `mean_curvature`).
 fn register_settings(
     path: &Path,
     raw: &RawRegister,
@@ -333,12 +338,12 @@ fn register_settings(
         ));
     }
     for (i, f) in features.iter().enumerate() {
-        if !maps.contains(f) {
+        if !maps.contains(f) && f != BUILTIN_MEAN_CURVATURE {
             return Err(bad(
                 path,
                 "register.features",
                 format!(
-                    "`{f}` is not one of inputs.maps ({}); expected the suffix of an input map",
+                    "`{f}` is not one of inputs.maps ({}) nor `{BUILTIN_MEAN_CURVATURE}`; expected the suffix of an input map or the built-in feature",
                     maps.join(", ")
                 ),
             ));

@@ -253,6 +253,11 @@ pub struct RegisterFigures {
     pub folded: usize,
     /// Demons iterations kept, over all stages.
     pub iterations: usize,
+    /// Subject triangles the unsoftened warp would have turned over or
+    /// squashed, and the rounds of softening that kept the mesh embedded
+    /// (`register::embed`).
+    pub softened_triangles: usize,
+    pub soften_rounds: usize,
     pub mean_displacement_deg: Option<f64>,
     pub max_displacement_deg: Option<f64>,
 }
@@ -359,10 +364,23 @@ fn output_names(
         out.push((
             "resampled-map".to_string(),
             Some(suffix.clone()),
-            format!("{dir}/{stem}_space-{space}_desc-aligned_{suffix}.{ext}"),
+            format!(
+                "{dir}/{stem}_space-{space}_desc-{}_{suffix}.{ext}",
+                map_desc(m)
+            ),
         ));
     }
     out
+}
+
+/// The `desc-` entity of the resampled maps: `registered` when the
+/// registration stage ran, else `aligned`.
+fn map_desc(m: &Manifest) -> &'static str {
+    if m.register.is_some() {
+        "registered"
+    } else {
+        "aligned"
+    }
 }
 
 /// The inputs of a unit with their hashes and the options, as recorded.
@@ -1060,10 +1078,11 @@ fn compute(
         let is_label = matches!(r.values, MapValues::Labels { .. });
         let ext = if is_label { "label.gii" } else { "shape.gii" };
         let name = format!(
-            "{}/{}_space-{}_desc-aligned_{suffix}.{ext}",
+            "{}/{}_space-{}_desc-{}_{suffix}.{ext}",
             u.sub(),
             u.stem(),
-            shared.space
+            shared.space,
+            map_desc(m)
         );
         record.resample.push(ResampleFigures {
             map: suffix.clone(),
@@ -1114,11 +1133,12 @@ fn register_stage(
     };
     let mut features = Vec::with_capacity(t.template.names.len());
     for name in &t.template.names {
-        let k = u
-            .maps
-            .iter()
-            .position(|(s, _)| s == name)
-            .ok_or_else(|| {
+        let k = u.maps.iter().position(|(s, _)| s == name);
+        if k.is_none() && name == crate::cohort::manifest::BUILTIN_MEAN_CURVATURE {
+            features.push(crate::mesh::curvature::mean_curvature(mesh));
+            continue;
+        }
+        let k = k.ok_or_else(|| {
                 Error::Invalid(format!(
                     "feature `{name}`: no input map with this suffix for this unit; expected one of inputs.maps"
                 ))
@@ -1177,6 +1197,8 @@ fn register_stage(
         jacobian_max: fin(rep.jacobian.max),
         folded: rep.jacobian.folded + rep.subject_folded,
         iterations: rep.stages.iter().map(|s| s.iterations).sum(),
+        softened_triangles: rep.embed.offenders_first,
+        soften_rounds: rep.embed.local_rounds + rep.embed.global_halvings,
         mean_displacement_deg: fin(rep.mean_displacement_deg),
         max_displacement_deg: fin(rep.max_displacement_deg),
     });

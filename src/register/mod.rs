@@ -336,12 +336,35 @@ pub fn sample_subject(
     })
 }
 
+/// Where a registration is: reported to the observer of
+/// [`register_observed`] after every demons iteration (for progress bars).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Progress {
+    /// Stage, from 1.
+    pub stage: usize,
+    pub stages: usize,
+    /// Iterations done in this stage, and the most it may take.
+    pub iteration: usize,
+    pub iterations: usize,
+}
+
 /// Register a subject sphere with its feature maps to `template`.
 pub fn register(
     sphere: &TriMesh,
     features: &[Vec<f64>],
     template: &Template,
     opts: &RegisterOptions,
+) -> Result<Registration> {
+    register_observed(sphere, features, template, opts, &|_| {})
+}
+
+/// [`register`], calling `observe` after every demons iteration.
+pub fn register_observed(
+    sphere: &TriMesh,
+    features: &[Vec<f64>],
+    template: &Template,
+    opts: &RegisterOptions,
+    observe: &dyn Fn(Progress),
 ) -> Result<Registration> {
     template.check()?;
     let grid = IcoGrid::new(template.level);
@@ -352,7 +375,7 @@ pub fn register(
         &grid,
         opts.sphere_tolerance,
     )?;
-    register_sampled(sphere, &subject, template, &grid, opts)
+    register_sampled(sphere, &subject, template, &grid, opts, observe)
 }
 
 fn check_options(opts: &RegisterOptions, stages: &[Stage], level: u32) -> Result<()> {
@@ -461,6 +484,7 @@ pub fn register_sampled(
     template: &Template,
     grid: &IcoGrid,
     opts: &RegisterOptions,
+    observe: &dyn Fn(Progress),
 ) -> Result<Registration> {
     let start = std::time::Instant::now();
     let level = template.level;
@@ -485,7 +509,16 @@ pub fn register_sampled(
     let nt = x.len();
     let mut v = VelocityField::zero(grid, stages.first().map_or(1, |s| s.control_level));
     let mut stage_reports = Vec::with_capacity(stages.len());
-    for st in &stages {
+    for (si, st) in stages.iter().enumerate() {
+        let progress = |iteration| {
+            observe(Progress {
+                stage: si + 1,
+                stages: stages.len(),
+                iteration,
+                iterations: st.iterations,
+            })
+        };
+        progress(0);
         v = v.refine(grid, st.control_level);
         let c = st.control_level;
         let spacing = grid.spacing(c);
@@ -521,9 +554,12 @@ pub fn register_sampled(
         let mut e = residual(&t_s, &w, &areas);
         let e0 = e;
         let mut kept = 0;
-        for _ in 0..st.iterations {
+        for it in 0..st.iterations {
             if e == 0.0 {
                 break;
+            }
+            if it > 0 {
+                progress(it);
             }
             let grad_w: Vec<Vec<Vec3>> = w.iter().map(|f| grid.gradient(f, level)).collect();
             let u: Vec<Vec3> = (0..nt)

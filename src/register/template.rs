@@ -228,7 +228,14 @@ pub fn build_template(
         let mut fields = Vec::with_capacity(subjects.len());
         let mut reports = Vec::with_capacity(subjects.len());
         for (i, s) in subjects.iter().enumerate() {
-            let r = register_sampled(&s.sphere, &sampled[i], &template, &grid, &opts.register)?;
+            let r = register_sampled(
+                &s.sphere,
+                &sampled[i],
+                &template,
+                &grid,
+                &opts.register,
+                &|_| {},
+            )?;
             warped.push(r.warped_features);
             fields.push(r.velocity);
             reports.push(r.report);
