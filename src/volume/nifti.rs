@@ -24,8 +24,8 @@
 //! What stays true (the fuzz target `nifti` checks it, docs/fuzzing.md):
 //! memory is bounded by what the file holds, never by what the header
 //! claims: the declared size is compared with the bytes present before the
-//! values are allocated, and gzip inflation stops after the declared size
-//! + 1 byte. An accepted volume has `dims[0] x dims[1] x dims[2]` values and
+//! values are allocated, and gzip inflation stops one byte after the
+//! declared size. An accepted volume has `dims[0] x dims[1] x dims[2]` values and
 //! a finite, invertible affine; values of an integer datatype are finite,
 //! those of a float datatype may be NaN or infinite as stored (NaN often
 //! marks voxels outside a map; the commands that need finite values check).
