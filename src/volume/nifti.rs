@@ -78,13 +78,14 @@ pub fn parse_volume_typed(bytes: &[u8], path: &Path) -> Result<(Volume, NiftiTyp
         nbytes,
     } = layout;
     let present = data.len().saturating_sub(offset);
+    let size = voxel_bytes(dtype).unwrap_or(0);
     if present < nbytes {
         return Err(Error::bad_file(
             path,
             "data",
             format!(
-                "{present} bytes after vox_offset {offset}; expected {nbytes} (dimensions {dims:?} of {dtype:?}, {} bytes each)",
-                voxel_bytes(dtype).unwrap_or(0)
+                "{present} bytes after vox_offset {offset}; expected {nbytes} (dimensions {dims:?} of {dtype:?}, {size} byte{} per voxel)",
+                if size == 1 { "" } else { "s" }
             ),
         ));
     }
