@@ -6,7 +6,9 @@
 //! result is checked against the reader's promise (a validated mesh has
 //! finite coordinates and in-range indices, a GIFTI array's data length
 //! equals the product of its dimensions, a table's rows have the header's
-//! width). A broken promise is a panic, so the fuzzer reports it as a crash
+//! width; a NIfTI volume has as many values as its three dimensions say,
+//! finite values unless its datatype is a float type, and a finite,
+//! invertible affine). A broken promise is a panic, so the fuzzer reports it as a crash
 //! exactly like a panic inside a reader.
 //!
 //! [`seeds`] builds small valid inputs from our own writers (every GIFTI
@@ -40,11 +42,13 @@ pub enum Target {
     Landmarks,
     /// Participants TSV with a model formula (first line) and the design built from both.
     Participants,
+    /// NIfTI-1 volume, plain or gzip (`volume::nifti::parse_volume`).
+    Nifti,
 }
 
 impl Target {
     /// Every target, in the order the fuzz crate lists them.
-    pub const ALL: [Target; 7] = [
+    pub const ALL: [Target; 8] = [
         Target::Gifti,
         Target::Obj,
         Target::Ply,
@@ -52,6 +56,7 @@ impl Target {
         Target::Manifest,
         Target::Landmarks,
         Target::Participants,
+        Target::Nifti,
     ];
 
     /// The fuzz target's name (the binary in `fuzz/` and its seed folder `fuzz/seeds/<name>`).
@@ -64,6 +69,7 @@ impl Target {
             Target::Manifest => "manifest",
             Target::Landmarks => "landmarks",
             Target::Participants => "participants",
+            Target::Nifti => "nifti",
         }
     }
 
@@ -79,6 +85,7 @@ impl Target {
             Target::Manifest => "fuzz-manifest.toml",
             Target::Landmarks => "fuzz_landmarks.csv",
             Target::Participants => "participants.tsv",
+            Target::Nifti => "fuzz.nii.gz",
         })
     }
 }
@@ -162,7 +169,76 @@ pub fn feed(target: Target, data: &[u8]) {
                 }
             }
         }
+        Target::Nifti => {
+            use crate::volume::nifti::parse_volume_typed;
+            let plain = parse_volume_typed(data, path);
+            if let Ok((v, dtype)) = &plain {
+                check_volume(v, *dtype);
+            }
+            // libFuzzer seldom keeps a gzip stream valid (CRC), so the same
+            // bytes are also compressed here: the gzip path must give the
+            // same volume, or refuse what the plain path refuses, or refuse
+            // data beyond the declared size (plain files may carry it).
+            if !data.starts_with(&[0x1f, 0x8b]) {
+                match (&plain, parse_volume_typed(&gzip_fast(data), path)) {
+                    (Ok((a, ta)), Ok((b, tb))) => {
+                        assert_eq!(ta, &tb, "gzip changed the datatype");
+                        assert_eq!(a.dims, b.dims, "gzip changed the dimensions");
+                        assert!(
+                            a.values
+                                .iter()
+                                .zip(&b.values)
+                                .all(|(x, y)| x.to_bits() == y.to_bits()),
+                            "gzip changed the values"
+                        );
+                        assert_eq!(a.affine.m, b.affine.m, "gzip changed the affine");
+                    }
+                    (Err(_), Err(_)) => {}
+                    (Err(e), Ok(_)) => panic!("gzip accepted what plain refused: {e}"),
+                    (Ok(_), Err(e)) => assert!(
+                        e.to_string().contains("decompressed data is larger than"),
+                        "gzip refused what plain accepted: {e}"
+                    ),
+                }
+            }
+        }
     }
+}
+
+/// Check the promise of an accepted NIfTI volume (module doc of
+/// `volume::nifti`): three dimensions whose product is the value count;
+/// finite values for integer datatypes (a float datatype may store NaN and
+/// infinities, and its scaled values may overflow to infinity; those pass
+/// through as stored); a finite, invertible affine whose inverse is finite.
+fn check_volume(v: &crate::volume::Volume, dtype: nifti::NiftiType) {
+    use nifti::NiftiType;
+    assert!(
+        v.dims.iter().all(|&d| d >= 1),
+        "volume with a zero dimension"
+    );
+    assert_eq!(
+        v.dims.iter().product::<usize>(),
+        v.values.len(),
+        "volume value count differs from its dimensions"
+    );
+    if !matches!(dtype, NiftiType::Float32 | NiftiType::Float64) {
+        assert!(
+            v.values.iter().all(|x| x.is_finite()),
+            "integer datatype {dtype:?} gave a non-finite value"
+        );
+    }
+    assert!(
+        v.affine.check("fuzz").is_ok(),
+        "accepted an affine that is non-finite or singular"
+    );
+    assert!(
+        v.affine.det() != 0.0,
+        "accepted an affine with zero determinant"
+    );
+    assert!(
+        v.affine.inverse().m.iter().flatten().all(|x| x.is_finite()),
+        "affine inverse is not finite"
+    );
 }
 
 /// A small closed mesh (the icosahedron, 12 vertices) for the mesh seeds.
@@ -339,6 +415,65 @@ pub fn seeds(target: Target) -> Vec<(String, Vec<u8>)> {
                     .to_vec(),
             );
         }
+        Target::Nifti => {
+            use crate::volume::affine::Affine;
+            use crate::volume::nifti::{encode_nifti1, StoreType};
+            let axis = Affine {
+                m: [
+                    [2.0, 0.0, 0.0, -3.0],
+                    [0.0, 2.0, 0.0, -4.0],
+                    [0.0, 0.0, 2.5, -5.0],
+                ],
+            };
+            let oblique = Affine {
+                m: [
+                    [0.9, 0.1, 0.0, -10.0],
+                    [-0.1, 1.1, 0.05, 4.0],
+                    [0.0, 0.02, 1.3, 2.5],
+                ],
+            };
+            let dims = [3usize, 4, 5];
+            let values: Vec<f64> = (0..60).map(|i| (i % 7) as f64 * 0.5 - 1.0).collect();
+            let counts: Vec<f64> = (0..60).map(|i| ((i * 37) % 251) as f64).collect();
+            put(
+                "uint8.nii",
+                encode_nifti1(&dims, &counts, &axis, StoreType::U8),
+            );
+            put(
+                "int16.nii",
+                encode_nifti1(&dims, &counts, &axis, StoreType::I16),
+            );
+            put(
+                "float32-oblique.nii",
+                encode_nifti1(&dims, &values, &oblique, StoreType::F32),
+            );
+            put(
+                "float64-4d-one-volume.nii",
+                encode_nifti1(&[3, 4, 5, 1], &values, &axis, StoreType::F64),
+            );
+            let raw = encode_nifti1(&dims, &values, &oblique, StoreType::F32);
+            put("float32-oblique.nii.gz", gzip(&raw));
+        }
     }
     out
+}
+
+/// `raw` gzip-compressed at the fastest level (fuzz harness only).
+fn gzip_fast(raw: &[u8]) -> Vec<u8> {
+    use std::io::Write;
+    let mut e = flate2::write::GzEncoder::new(Vec::new(), flate2::Compression::fast());
+    e.write_all(raw).expect("in-memory gzip");
+    e.finish().expect("in-memory gzip")
+}
+
+/// A gzip member holding `raw` (fixed header fields, so the bytes are the
+/// same on every run and platform).
+fn gzip(raw: &[u8]) -> Vec<u8> {
+    use std::io::Write;
+    let mut e = flate2::GzBuilder::new()
+        .mtime(0)
+        .operating_system(255)
+        .write(Vec::new(), flate2::Compression::best());
+    e.write_all(raw).expect("in-memory gzip");
+    e.finish().expect("in-memory gzip")
 }

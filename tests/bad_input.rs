@@ -12,6 +12,7 @@ use horosphere::io::gifti::{self, ByteOrder, Encoding, Gifti, IndexOrder, WriteO
 use horosphere::mesh::shapes::{icosphere, torus};
 use horosphere::mesh::TriMesh;
 use horosphere::resample::matrix::{write_cohort_gifti, CohortColumn};
+use horosphere::volume::nifti::{encode_nifti1, StoreType};
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
@@ -139,6 +140,33 @@ fn cases(tmp: &Path) -> Vec<Case> {
         .into_bytes()
     };
     let matrix = matrix_bytes(tmp);
+    // NIfTI: a 4x4x4 uint8 mask (a 2x2x2 cube), 352 + 64 bytes, broken by hand.
+    let vol_affine = horosphere::volume::affine::Affine::scaling([1.0, 1.0, 1.0]);
+    let cube: Vec<f64> = (0..64)
+        .map(|i| {
+            let (x, y, z) = (i % 4, (i / 4) % 4, i / 16);
+            f64::from(u8::from(
+                (1..3).contains(&x) && (1..3).contains(&y) && (1..3).contains(&z),
+            ))
+        })
+        .collect();
+    let nii = |dims: &[usize], v: &[f64]| encode_nifti1(dims, v, &vol_affine, StoreType::U8);
+    let mask = nii(&[4, 4, 4], &cube);
+    let gz = |raw: &[u8], extra_zeros: usize| {
+        use std::io::Write;
+        let mut e = flate2::write::GzEncoder::new(Vec::new(), flate2::Compression::best());
+        e.write_all(raw).unwrap();
+        e.write_all(&vec![0u8; extra_zeros]).unwrap();
+        e.finish().unwrap()
+    };
+    let nifti_bomb = gz(&mask, 32 << 20);
+    let mut huge = mask.clone();
+    for k in 0..3 {
+        huge[42 + 2 * k..44 + 2 * k].copy_from_slice(&30000u16.to_le_bytes());
+    }
+    let mut pair_header = mask.clone();
+    pair_header[344..348].copy_from_slice(b"ni1\0");
+    let two = nii(&[4, 4, 4, 2], &[cube.clone(), cube.clone()].concat());
     let m = |files: Vec<(&'static str, Vec<u8>)>| {
         let mut f = vec![
             ("matrix.func.gii", matrix.clone()),
@@ -347,6 +375,55 @@ fn cases(tmp: &Path) -> Vec<Case> {
             files: vec![("torus.obj", obj(&torus(30.0, 10.0, 24, 12)))],
             code: 1,
             expect: &["genus"],
+            outputs: &["out.surf.gii"],
+        },
+        // ---- NIfTI volumes (extract, sample) ----
+        Case {
+            name: "nifti-truncated-data",
+            args: &["extract", "{d}/short.nii", "-o", "{d}/out.surf.gii"],
+            files: vec![("short.nii", mask[..mask.len() - 10].to_vec())],
+            code: 1,
+            expect: &["short.nii", "data", "54 bytes after vox_offset 352", "expected 64"],
+            outputs: &["out.surf.gii"],
+        },
+        Case {
+            name: "nifti-truncated-gzip",
+            args: &["extract", "{d}/cut.nii.gz", "-o", "{d}/out.surf.gii"],
+            files: vec![("cut.nii.gz", { let z = gz(&mask, 0); z[..z.len() / 2].to_vec() })],
+            code: 1,
+            expect: &["cut.nii.gz", "expected"],
+            outputs: &["out.surf.gii"],
+        },
+        Case {
+            name: "nifti-gzip-bomb",
+            args: &["sample", "{d}/bomb.nii.gz", "--surface", "{d}/sphere.surf.gii", "-o", "{d}/out.shape.gii"],
+            files: vec![("sphere.surf.gii", sphere.clone()), ("bomb.nii.gz", nifti_bomb)],
+            code: 1,
+            expect: &["bomb.nii.gz", "gzip stream", "larger than the 416 bytes"],
+            outputs: &["out.shape.gii"],
+        },
+        Case {
+            name: "nifti-huge-dimensions",
+            args: &["extract", "{d}/huge.nii", "-o", "{d}/out.surf.gii"],
+            files: vec![("huge.nii", huge)],
+            code: 1,
+            expect: &["huge.nii", "data", "expected 27000000000000"],
+            outputs: &["out.surf.gii"],
+        },
+        Case {
+            name: "nifti-header-of-a-pair",
+            args: &["extract", "{d}/pair.hdr", "-o", "{d}/out.surf.gii"],
+            files: vec![("pair.hdr", pair_header)],
+            code: 1,
+            expect: &["pair.hdr", "header magic", ".hdr/.img pair"],
+            outputs: &["out.surf.gii"],
+        },
+        Case {
+            name: "nifti-two-volumes",
+            args: &["extract", "{d}/two.nii", "-o", "{d}/out.surf.gii"],
+            files: vec![("two.nii", two)],
+            code: 1,
+            expect: &["two.nii", "header dim", "3-D"],
             outputs: &["out.surf.gii"],
         },
         // ---- resample ----

@@ -80,7 +80,7 @@ fn corpora_and_regressions_replay_without_panic() {
         "panics on replay:\n{}",
         failures.join("\n")
     );
-    assert!(total >= 7 * 2, "replayed only {total} files");
+    assert!(total >= 8 * 2, "replayed only {total} files");
 }
 
 #[test]
@@ -309,73 +309,120 @@ fn huge_declared_dimensions_do_not_allocate() {
     }
 }
 
-/// The NIfTI reader (`volume::nifti::read_volume`, through the `nifti`
-/// crate) takes a path, so its mutations go through a scratch file: small
-/// valid volumes from our own writer (uint8, int16, float32, float64; an
-/// oblique affine), mutated, written, read, and, when accepted, checked
-/// against the reader's promise (three dimensions whose product is the
-/// value count, finite invertible affine). Also gzip-compressed. No panic
-/// is allowed; a libFuzzer target for this reader is still to do
-/// (docs/fuzzing.md).
 #[test]
 fn mutations_nifti() {
-    use horosphere::volume::affine::Affine;
-    use horosphere::volume::nifti::{encode_nifti1, read_volume, StoreType};
+    mutation_loop(Target::Nifti);
+}
+
+/// The libFuzzer mutations rarely make a valid gzip stream, so here the
+/// plain seeds are mutated first and then compressed: the bounded inflation
+/// and every header check are reached through gzip too.
+#[test]
+fn mutations_nifti_inside_gzip() {
     use std::io::Write;
-    let affine = Affine {
-        m: [
-            [0.9, 0.1, 0.0, -10.0],
-            [-0.1, 1.1, 0.05, 4.0],
-            [0.0, 0.02, 1.3, 2.5],
-        ],
-    };
-    let dims = [3usize, 4, 5];
-    let values: Vec<f64> = (0..60).map(|i| (i % 7) as f64 * 0.5).collect();
-    let seeds: Vec<Vec<u8>> = [
-        StoreType::U8,
-        StoreType::I16,
-        StoreType::F32,
-        StoreType::F64,
-    ]
-    .into_iter()
-    .map(|s| encode_nifti1(&dims, &values, &affine, s))
-    .collect();
-    let dir = std::env::temp_dir().join(format!("horosphere-fuzz-nifti-{}", std::process::id()));
-    std::fs::create_dir_all(&dir).unwrap();
-    // The unmutated seeds are read back exactly.
-    for (k, s) in seeds.iter().enumerate() {
-        let p = dir.join(format!("seed{k}.nii"));
-        std::fs::write(&p, s).unwrap();
-        let v = read_volume(&p).expect("our own NIfTI file reads back");
-        assert_eq!(v.dims, dims);
-        assert_eq!(v.values.len(), 60);
-    }
-    let mut rng = SplitMix64::new(0x5eed_0100);
+    let seed_list: Vec<(String, Vec<u8>)> = seeds(Target::Nifti)
+        .into_iter()
+        .filter(|(n, _)| n.ends_with(".nii"))
+        .collect();
+    let mut rng = SplitMix64::new(0x5eed_0200);
     let mut failures = Vec::new();
-    for k in 0..600 {
-        let input = mutate(&mut rng, &seeds[k % seeds.len()]);
-        let gz = k % 3 == 2;
-        let p = dir.join(if gz { "m.nii.gz" } else { "m.nii" });
-        let bytes = if gz {
-            let mut e = flate2::write::GzEncoder::new(Vec::new(), flate2::Compression::fast());
-            e.write_all(&input).unwrap();
-            e.finish().unwrap()
-        } else {
-            input.clone()
-        };
-        std::fs::write(&p, &bytes).unwrap();
-        let r = catch_unwind(AssertUnwindSafe(|| {
-            if let Ok(v) = read_volume(&p) {
-                assert_eq!(v.dims.iter().product::<usize>(), v.values.len());
-                assert!(v.affine.m.iter().flatten().all(|x| x.is_finite()));
-            }
-        }));
-        if r.is_err() {
-            let out = dir.join(format!("panic-{k}.nii"));
-            let _ = std::fs::write(&out, &input);
-            failures.push(format!("mutation {k}: input saved to {}", out.display()));
+    for k in 0..1000 {
+        let (name, seed) = &seed_list[k % seed_list.len()];
+        let input = mutate(&mut rng, seed);
+        let mut e = flate2::write::GzEncoder::new(Vec::new(), flate2::Compression::fast());
+        e.write_all(&input).unwrap();
+        let gz = e.finish().unwrap();
+        if let Err(m) = run(Target::Nifti, &gz) {
+            failures.push(format!("seed {name} mutation {k} (gzip): {m}"));
         }
     }
     assert!(failures.is_empty(), "panics:\n{}", failures.join("\n"));
+}
+
+/// `read_volume` (a file, the one path the commands use) reaches the same
+/// in-memory parser: our own volumes read back exactly, plain and gzip, and
+/// a refusal names the file.
+#[test]
+fn nifti_files_read_back() {
+    use horosphere::volume::nifti::{parse_volume, read_volume};
+    let dir = std::env::temp_dir().join(format!("horosphere-fuzz-nifti-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    for (name, bytes) in seeds(Target::Nifti) {
+        let p = dir.join(&name);
+        std::fs::write(&p, &bytes).unwrap();
+        let from_file = read_volume(&p).expect("our own NIfTI file reads back");
+        let in_memory = parse_volume(&bytes, &p).expect("in memory");
+        assert_eq!(from_file.dims, [3, 4, 5], "{name}");
+        assert_eq!(from_file.values.len(), 60, "{name}");
+        assert_eq!(from_file.values, in_memory.values, "{name}");
+        assert_eq!(from_file.affine.m, in_memory.affine.m, "{name}");
+    }
+    // The gzip seed holds the same volume as the plain float32 one.
+    let plain = read_volume(&dir.join("float32-oblique.nii")).unwrap();
+    let gz = read_volume(&dir.join("float32-oblique.nii.gz")).unwrap();
+    assert_eq!(plain.values, gz.values);
+    assert_eq!(plain.affine.m, gz.affine.m);
+    assert!((plain.affine.m[1][1] - 1.1).abs() < 1e-6);
+    // Truncated gzip file: refused, naming the file.
+    let gz_bytes = std::fs::read(dir.join("float32-oblique.nii.gz")).unwrap();
+    let p = dir.join("cut.nii.gz");
+    std::fs::write(&p, &gz_bytes[..gz_bytes.len() / 2]).unwrap();
+    let e = read_volume(&p).unwrap_err().to_string();
+    assert!(e.contains("cut.nii.gz"), "{e}");
     let _ = std::fs::remove_dir_all(&dir);
+}
+
+/// A 3x4x5 uint8 header (412 bytes declared) followed by 64 MiB of zeros,
+/// gzip-compressed: inflation stops at 413 bytes and the file is refused
+/// quickly.
+#[test]
+fn nifti_gzip_bomb_is_refused_quickly() {
+    use std::io::Write;
+    let (_, seed) = seeds(Target::Nifti)
+        .into_iter()
+        .find(|(n, _)| n == "uint8.nii")
+        .unwrap();
+    let mut enc = flate2::write::GzEncoder::new(Vec::new(), flate2::Compression::best());
+    enc.write_all(&seed).unwrap();
+    let zeros = vec![0u8; 1 << 20];
+    for _ in 0..64 {
+        enc.write_all(&zeros).unwrap();
+    }
+    let z = enc.finish().unwrap();
+    assert!(z.len() < 100_000, "compressed bomb is {} bytes", z.len());
+    let t0 = std::time::Instant::now();
+    let e = horosphere::volume::nifti::parse_volume(&z, Path::new("bomb.nii.gz"))
+        .expect_err("bomb accepted");
+    let dt = t0.elapsed();
+    let msg = e.to_string();
+    assert!(msg.contains("bomb.nii.gz"), "{msg}");
+    assert!(msg.contains("larger than the 412 bytes"), "{msg}");
+    assert!(dt.as_millis() < 50, "refusal took {dt:?}");
+}
+
+/// Dimensions 30000^3 of float64 (216 TB) declared with 480 bytes of data,
+/// plain and gzip: refused from the header and the data length, without
+/// reserving the declared size (which would abort).
+#[test]
+fn nifti_huge_declared_dimensions_do_not_allocate() {
+    use std::io::Write;
+    let (_, mut bytes) = seeds(Target::Nifti)
+        .into_iter()
+        .find(|(n, _)| n == "float64-4d-one-volume.nii")
+        .unwrap();
+    for k in 0..3 {
+        bytes[42 + 2 * k..44 + 2 * k].copy_from_slice(&30000u16.to_le_bytes());
+    }
+    let mut e = flate2::write::GzEncoder::new(Vec::new(), flate2::Compression::fast());
+    e.write_all(&bytes).unwrap();
+    let gz = e.finish().unwrap();
+    for (name, b) in [("huge.nii", &bytes), ("huge.nii.gz", &gz)] {
+        let t0 = std::time::Instant::now();
+        let msg = horosphere::volume::nifti::parse_volume(b, Path::new(name))
+            .expect_err("accepted")
+            .to_string();
+        assert!(msg.contains(name) && msg.contains("data"), "{msg}");
+        assert!(msg.contains("216000000000000"), "{msg}");
+        assert!(t0.elapsed().as_millis() < 50, "{name}");
+    }
 }

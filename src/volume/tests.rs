@@ -786,3 +786,67 @@ fn surface_gifti_carries_the_coordinate_system() {
     let back = g.to_mesh(&p).expect("mesh");
     assert_eq!(back, mesh, "FLOAT64 coordinates are exact");
 }
+
+#[test]
+fn nifti_in_memory_layout_and_refusals() {
+    use super::nifti::{encode_nifti1, parse_volume, StoreType};
+    use std::path::Path;
+    let a = oblique(1.5, false, [1.0, 2.0, 3.0]);
+    let dims = [3usize, 4, 5];
+    let vals: Vec<f64> = (0..60).map(|i| i as f64 - 20.0).collect();
+    let base = encode_nifti1(&dims, &vals, &a, StoreType::I16);
+    let p = Path::new("mem.nii");
+    let msg = |b: &[u8]| parse_volume(b, p).unwrap_err().to_string();
+    assert_eq!(parse_volume(&base, p).expect("plain").values, vals);
+    // vox_offset 368: 16 bytes of padding before the data are skipped
+    // (nifti1.h: the data start at vox_offset).
+    let mut padded = base[..352].to_vec();
+    padded[108..112].copy_from_slice(&368f32.to_le_bytes());
+    padded.extend_from_slice(&[0x7f; 16]);
+    padded.extend_from_slice(&base[352..]);
+    assert_eq!(parse_volume(&padded, p).expect("padded").values, vals);
+    // A fractional or negative vox_offset is refused.
+    for bad in [352.5f32, -16.0, f32::NAN] {
+        let mut b = base.clone();
+        b[108..112].copy_from_slice(&bad.to_le_bytes());
+        let e = msg(&b);
+        assert!(e.contains("mem.nii") && e.contains("vox_offset"), "{e}");
+    }
+    // Short header, wrong sizeof_hdr, header-only magic.
+    let e = msg(&base[..100]);
+    assert!(e.contains("100 bytes") && e.contains("348"), "{e}");
+    let mut b = base.clone();
+    b[0..4].copy_from_slice(&540i32.to_le_bytes());
+    assert!(msg(&b).contains("sizeof_hdr = 540"), "{}", msg(&b));
+    let mut b = base.clone();
+    b[344..348].copy_from_slice(b"ni1\0");
+    assert!(msg(&b).contains(".hdr/.img pair"), "{}", msg(&b));
+    // Data shorter than declared: the counts are named.
+    let e = msg(&base[..base.len() - 2]);
+    assert!(
+        e.contains("118 bytes after vox_offset 352") && e.contains("expected 120"),
+        "{e}"
+    );
+    // Gzip: the same volume; trailing data beyond the declared size is
+    // refused (a plain file may carry it).
+    let gz = |raw: &[u8]| {
+        let mut e = flate2::write::GzEncoder::new(Vec::new(), flate2::Compression::fast());
+        std::io::Write::write_all(&mut e, raw).expect("gzip");
+        e.finish().expect("gzip")
+    };
+    assert_eq!(parse_volume(&gz(&base), p).expect("gzip").values, vals);
+    let mut long = base.clone();
+    long.push(0);
+    assert_eq!(
+        parse_volume(&long, p).expect("plain, trailing").values,
+        vals
+    );
+    let e = msg(&gz(&long));
+    assert!(e.contains("larger than the 472 bytes"), "{e}");
+    // A corrupt gzip stream names the stream.
+    let mut z = gz(&base);
+    let n = z.len();
+    z[n - 6] ^= 0xff;
+    let e = msg(&z);
+    assert!(e.contains("mem.nii") && e.contains("gzip"), "{e}");
+}
