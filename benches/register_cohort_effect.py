@@ -106,6 +106,8 @@ def main():
     ap.add_argument("--margin-deg", type=float, default=10.0)
     ap.add_argument("--jobs", type=int, default=2)
     ap.add_argument("--rounds", type=int, default=2)
+    ap.add_argument("--features", default="depth",
+                    help="comma-separated registration features: depth and/or mean_curvature")
     a = ap.parse_args()
     b = os.path.abspath(a.bin)
     w = os.path.abspath(a.work)
@@ -119,19 +121,33 @@ def main():
     manifest(os.path.join(w, "plain.toml"), study, plain, "")
     sh([b, "run", os.path.join(w, "plain.toml"), "--jobs", a.jobs])
     subs = sorted(d for d in os.listdir(study) if d.startswith("sub-"))
-    with open(os.path.join(w, "table.csv"), "w") as f:
-        f.write("subject,sphere,depth\n")
+    feats = [f.strip() for f in a.features.split(",") if f.strip()]
+    tag = "-".join(feats)
+    table = os.path.join(w, f"table-{tag}.csv")
+    with open(table, "w") as f:
+        f.write("subject,sphere," + ",".join(feats) + "\n")
         for s in subs:
+            cols = []
+            for feat in feats:
+                if feat == "mean_curvature":
+                    curv = os.path.join(w, "curv", f"{s}_hemi-L_curv.shape.gii")
+                    if not os.path.exists(curv):
+                        os.makedirs(os.path.dirname(curv), exist_ok=True)
+                        sh([b, "curvature", f"{study}/{s}/{s}_hemi-L_white.surf.gii", "-o", curv])
+                    cols.append(curv)
+                else:
+                    cols.append(f"{study}/{s}/{s}_hemi-L_{feat}.shape.gii")
             f.write(f"{s},{plain}/{s}/{s}_hemi-L_space-individual_desc-aligned_sphere.surf.gii,"
-                    f"{study}/{s}/{s}_hemi-L_depth.shape.gii\n")
-    tdir = os.path.join(w, "tpl-L")
+                    + ",".join(cols) + "\n")
+    tdir = os.path.join(w, f"tpl-{tag}-L")
     if not os.path.exists(os.path.join(tdir, "template.json")):
-        sh([b, "register-template", "--cohort", os.path.join(w, "table.csv"), "-o", tdir,
+        sh([b, "register-template", "--cohort", table, "-o", tdir,
             "--level", "5", "--rounds", a.rounds])
-    reg = os.path.join(w, "reg")
-    manifest(os.path.join(w, "reg.toml"), study, reg,
-             '[register]\nenabled = true\ntemplate = "tpl-{hemi}"\nfeatures = ["depth"]\n')
-    sh([b, "run", os.path.join(w, "reg.toml"), "--jobs", a.jobs])
+    reg = os.path.join(w, f"reg-{tag}")
+    flist = ", ".join(f'"{x}"' for x in feats)
+    manifest(os.path.join(w, f"reg-{tag}.toml"), study, reg,
+             f'[register]\nenabled = true\ntemplate = "tpl-{tag}-{{hemi}}"\nfeatures = [{flist}]\n')
+    sh([b, "run", os.path.join(w, f"reg-{tag}.toml"), "--jobs", a.jobs])
 
     g = json.load(open(os.path.join(study, "ground_truth.json")))
     eff = g["effect"]
@@ -146,6 +162,7 @@ def main():
     outside = ang > radius + a.margin_deg
     participants = os.path.join(study, "participants.tsv")
     result = {"subjects": a.subjects, "vertices": a.vertices, "seed": a.seed,
+              "features": feats,
               "effect_mm": eff["thickness_change_mm"], "radius_deg": radius,
               "in_cap": int(inside.sum()), "outside": int(outside.sum())}
     corr = []
@@ -159,7 +176,7 @@ def main():
     result["register_rose_for"] = sum(1 for c in corr if c[1] > c[0])
     result["register_folded_total"] = sum(c[2] for c in corr)
     for name, out in (("moebius", plain), ("registered", reg)):
-        q, pv = stats(b, out, participants, os.path.join(w, f"stats-{name}"))
+        q, pv = stats(b, out, participants, os.path.join(w, f"stats-{name}-{tag}"))
         sig = np.nan_to_num(q, nan=1.0) < 0.05
         result[name] = {"sensitivity": float(sig[inside].mean()),
                         "false_positive_rate": float(sig[outside].mean()),
