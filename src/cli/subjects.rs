@@ -71,7 +71,7 @@ mod tests {
     fn failed_subjects_are_left_out_and_counted() {
         let rows: Vec<(usize, String)> = (2..7).map(|l| (l, format!("s{l}"))).collect();
         let load = |r: &(usize, String)| {
-            if r.0 % 3 == 0 {
+            if r.0.is_multiple_of(3) {
                 Err(Error::Invalid(format!("{} unreadable", r.1)))
             } else {
                 Ok(r.1.clone())
