@@ -32,8 +32,51 @@ fn run(args: &[&str]) -> Output {
     bin().args(args).output().unwrap()
 }
 
+/// `horosphere <args>`, which must succeed (else fail with its stderr).
+fn run_ok(args: &[&str]) -> Output {
+    let o = run(args);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    o
+}
+
 fn s(p: &Path) -> &str {
     p.to_str().unwrap()
+}
+
+/// `align <sphere> --landmarks <landmarks> --template <template> -o <out>`
+/// followed by `extra`.
+fn align_args<'a>(
+    sphere: &'a Path,
+    landmarks: &'a Path,
+    template: &'a Path,
+    out: &'a Path,
+    extra: &[&'a str],
+) -> Vec<&'a str> {
+    let mut v = vec![
+        "align",
+        s(sphere),
+        "--landmarks",
+        s(landmarks),
+        "--template",
+        s(template),
+        "-o",
+        s(out),
+    ];
+    v.extend_from_slice(extra);
+    v
+}
+
+/// Largest distance (mm) from a vertex of `aligned` to the same vertex of
+/// the unmoved icosphere of level 3 and radius 100, whose faces it must have.
+fn worst_offset_from_the_icosphere(aligned: &TriMesh) -> f64 {
+    let base = icosphere(3, 100.0);
+    assert_eq!(aligned.faces, base.faces);
+    aligned
+        .positions
+        .iter()
+        .zip(&base.positions)
+        .map(|(a, b)| dist(*a, *b))
+        .fold(0.0, f64::max)
 }
 
 /// Native surface (icosphere, radius 100), the sphere moved by `m`, the
@@ -95,30 +138,15 @@ fn align_undoes_a_moebius_map_and_reports_it() {
     let tp = write_template(&dir);
     let out = dir.join("aligned.obj");
     let rep = dir.join("align.json");
-    let o = run(&[
-        "align",
-        s(&sp),
-        "--landmarks",
-        s(&lp),
-        "--template",
-        s(&tp),
-        "-o",
-        s(&out),
-        "--surface",
-        s(&np),
-        "--report",
-        s(&rep),
-    ]);
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    run_ok(&align_args(
+        &sp,
+        &lp,
+        &tp,
+        &out,
+        &["--surface", s(&np), "--report", s(&rep)],
+    ));
     let aligned = horosphere::io::read_mesh(&out).unwrap();
-    let base = icosphere(3, 100.0);
-    assert_eq!(aligned.faces, base.faces);
-    let worst = aligned
-        .positions
-        .iter()
-        .zip(&base.positions)
-        .map(|(a, b)| dist(*a, *b))
-        .fold(0.0, f64::max);
+    let worst = worst_offset_from_the_icosphere(&aligned);
     // OBJ keeps enough digits for 1e-6 mm on a 100 mm sphere.
     assert!(worst < 1e-6, "{worst}");
 
@@ -162,32 +190,17 @@ fn gifti_spheres_in_and_out() {
     horosphere::io::write_mesh(&sg, &horosphere::io::read_mesh(&sp).unwrap()).unwrap();
     horosphere::io::write_mesh(&ng, &horosphere::io::read_mesh(&np).unwrap()).unwrap();
     let out = dir.join("sub-x_hemi-L_space-common_sphere.surf.gii");
-    let o = run(&[
-        "align",
-        s(&sg),
-        "--landmarks",
-        s(&lp),
-        "--template",
-        s(&tp),
-        "-o",
-        s(&out),
-        "--surface",
-        s(&ng),
-        "--fit",
-        "rotation",
-    ]);
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let o = run_ok(&align_args(
+        &sg,
+        &lp,
+        &tp,
+        &out,
+        &["--surface", s(&ng), "--fit", "rotation"],
+    ));
     let stdout = String::from_utf8_lossy(&o.stdout);
     assert!(stdout.contains("6 landmarks"), "{stdout}");
     let aligned = horosphere::io::read_mesh(&out).unwrap();
-    let base = icosphere(3, 100.0);
-    assert_eq!(aligned.faces, base.faces);
-    let worst = aligned
-        .positions
-        .iter()
-        .zip(&base.positions)
-        .map(|(a, b)| dist(*a, *b))
-        .fold(0.0, f64::max);
+    let worst = worst_offset_from_the_icosphere(&aligned);
     assert!(worst < 1e-3, "{worst}");
     std::fs::remove_dir_all(&dir).unwrap();
 }
@@ -205,20 +218,13 @@ fn output_does_not_depend_on_the_thread_count() {
     for threads in ["1", "3"] {
         let o = bin()
             .env("RAYON_NUM_THREADS", threads)
-            .args([
-                "align",
-                s(&sp),
-                "--landmarks",
-                s(&lp),
-                "--template",
-                s(&tp),
-                "-o",
-                s(&out),
-                "--surface",
-                s(&np),
-                "--report",
-                s(&rep),
-            ])
+            .args(align_args(
+                &sp,
+                &lp,
+                &tp,
+                &out,
+                &["--surface", s(&np), "--report", s(&rep)],
+            ))
             .output()
             .unwrap();
         assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
@@ -275,27 +281,23 @@ fn synthetic_subject_map_then_align() {
     std::fs::write(&lp, csv).unwrap();
     std::fs::write(&tp, tpl).unwrap();
     let sphere = dir.join("sub-x_hemi-L_sphere.surf.gii");
-    let o = run(&["map", s(&native), "-o", s(&sphere)]);
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    run_ok(&["map", s(&native), "-o", s(&sphere)]);
     let out = dir.join("sub-x_hemi-L_space-common_sphere.surf.gii");
     let rep = dir.join("align.json");
-    let o = run(&[
-        "align",
-        s(&sphere),
-        "--landmarks",
-        s(&lp),
-        "--template",
-        s(&tp),
-        "-o",
-        s(&out),
-        "--surface",
-        s(&native),
-        "--report",
-        s(&rep),
-        "--warn-degrees",
-        "15",
-    ]);
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    run_ok(&align_args(
+        &sphere,
+        &lp,
+        &tp,
+        &out,
+        &[
+            "--surface",
+            s(&native),
+            "--report",
+            s(&rep),
+            "--warn-degrees",
+            "15",
+        ],
+    ));
     let r: serde_json::Value = serde_json::from_slice(&std::fs::read(&rep).unwrap()).unwrap();
     let rms = r["rms_degrees"].as_f64().unwrap();
     assert!(
@@ -335,22 +337,11 @@ fn bad_input_gives_clear_errors_and_no_output() {
     let (sp, np, lp) = subject(&dir, "a", &m);
     let tp = write_template(&dir);
     let out = dir.join("aligned.obj");
-    let base_args = |lp: &Path, extra: &[&str]| {
-        let mut v: Vec<String> = [
-            "align",
-            s(&sp),
-            "--landmarks",
-            s(lp),
-            "--template",
-            s(&tp),
-            "-o",
-            s(&out),
-        ]
-        .iter()
-        .map(|x| x.to_string())
-        .collect();
-        v.extend(extra.iter().map(|x| x.to_string()));
-        v
+    let base_args = |lp: &Path, extra: &[&str]| -> Vec<String> {
+        align_args(&sp, lp, &tp, &out, extra)
+            .iter()
+            .map(|x| x.to_string())
+            .collect()
     };
     let check = |args: Vec<String>, want: &[&str]| {
         let o = bin().args(&args).output().unwrap();
@@ -416,27 +407,24 @@ fn template_from_a_cohort_then_align() {
     let cohort = dir.join("cohort.csv");
     std::fs::write(&cohort, &rows).unwrap();
     let tp = dir.join("built.toml");
-    let o = run(&["template", "--cohort", s(&cohort), "-o", s(&tp)]);
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    run_ok(&["template", "--cohort", s(&cohort), "-o", s(&tp)]);
     let t = horosphere::align::read_template(&tp).unwrap();
     assert_eq!(t.landmarks.len(), 6);
     assert_eq!(t.built.as_ref().unwrap().subjects, 4);
     // Every subject aligns to the built template with (near) zero residual.
     let out = dir.join("aligned.obj");
-    let o = run(&[
-        "align",
-        s(&dir.join("s2-sphere.obj")),
-        "--landmarks",
-        s(&dir.join("s2-landmarks.csv")),
-        "--template",
-        s(&tp),
-        "-o",
-        s(&out),
-        "--surface",
-        s(&dir.join("s2-native.obj")),
-        "--json",
-    ]);
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let (sp, lp, np) = (
+        dir.join("s2-sphere.obj"),
+        dir.join("s2-landmarks.csv"),
+        dir.join("s2-native.obj"),
+    );
+    let o = run_ok(&align_args(
+        &sp,
+        &lp,
+        &tp,
+        &out,
+        &["--surface", s(&np), "--json"],
+    ));
     let r: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
     assert!(r["max_degrees"].as_f64().unwrap() < 1e-6, "{r}");
 

@@ -7,19 +7,19 @@
 //! resampled values stay within the input's range; SHA-256 byte equality
 //! of the outputs across thread counts, reruns and interrupted runs.
 
+mod common;
+
+use common::{copy_tree, manifest, qc, tree};
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 use std::process::Command;
 use std::sync::OnceLock;
 
-const BIN: &str = env!("CARGO_BIN_EXE_horosphere");
+const BIN: &str = common::BIN;
 const SUBJECTS: usize = 4;
 
 fn scratch(tag: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("horosphere-cohort-{tag}-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).unwrap();
-    d
+    common::scratch("cohort", tag)
 }
 
 /// The demo study (made once per test process).
@@ -27,84 +27,18 @@ fn study() -> &'static Path {
     static DIR: OnceLock<PathBuf> = OnceLock::new();
     DIR.get_or_init(|| {
         let d = scratch("study");
-        let out = Command::new(BIN)
-            .args(["demo", "--out"])
-            .arg(&d)
-            .args([
-                "--subjects",
-                &SUBJECTS.to_string(),
-                "--vertices",
-                "2000",
-                "--seed",
-                "3",
-            ])
-            .output()
-            .unwrap();
-        assert!(
-            out.status.success(),
-            "{}",
-            String::from_utf8_lossy(&out.stderr)
-        );
+        common::demo_study(&d, SUBJECTS, 2000, 3, &[]);
         d
     })
 }
 
-/// A manifest for `root` writing to `output`, with the demo templates.
-fn manifest(dir: &Path, root: &Path, output: &Path) -> PathBuf {
-    let pipelines = Path::new(env!("CARGO_MANIFEST_DIR")).join("pipelines");
-    let text = format!(
-        r#"[study]
-root = "{}"
-output = "{}"
-[inputs]
-surface = "white"
-maps = ["thickness", "regions"]
-landmarks = "landmarks"
-template = "{}/demo-template-{{hemi}}.toml"
-[map]
-pole = "repair-added"
-[resample]
-target = "icosphere:3"
-"#,
-        root.display(),
-        output.display(),
-        pipelines.display()
-    );
-    let p = dir.join("cohort.toml");
-    std::fs::write(&p, text).unwrap();
-    p
-}
-
 fn run(manifest: &Path, extra: &[&str]) -> (i32, serde_json::Value, String) {
-    let out = Command::new(BIN)
-        .arg("run")
-        .arg(manifest)
-        .arg("--json")
-        .args(extra)
-        .output()
-        .unwrap();
-    let stderr = String::from_utf8_lossy(&out.stderr).into_owned();
-    let v: serde_json::Value =
-        serde_json::from_slice(&out.stdout).unwrap_or_else(|e| panic!("{e}: {stderr}"));
-    (out.status.code().unwrap_or(-1), v, stderr)
-}
-
-/// Every file under `dir` (relative path -> bytes).
-fn tree(dir: &Path) -> BTreeMap<String, Vec<u8>> {
-    let mut out = BTreeMap::new();
-    let mut stack = vec![dir.to_path_buf()];
-    while let Some(d) = stack.pop() {
-        for e in std::fs::read_dir(&d).unwrap() {
-            let p = e.unwrap().path();
-            if p.is_dir() {
-                stack.push(p);
-            } else {
-                let rel = p.strip_prefix(dir).unwrap().to_string_lossy().into_owned();
-                out.insert(rel, std::fs::read(&p).unwrap());
-            }
-        }
-    }
-    out
+    let out = common::run_json_output(manifest, extra);
+    (
+        out.status.code().unwrap_or(-1),
+        common::json(&out),
+        common::stderr(&out),
+    )
 }
 
 fn assert_same_tree(a: &Path, b: &Path) {
@@ -116,20 +50,6 @@ fn assert_same_tree(a: &Path, b: &Path) {
     for (k, v) in &ta {
         assert!(tb[k] == *v, "{k} differs");
     }
-}
-
-fn qc(output: &Path) -> Vec<BTreeMap<String, String>> {
-    let mut r = csv::Reader::from_path(output.join("group/desc-cohort_qc.csv")).unwrap();
-    let h = r.headers().unwrap().clone();
-    r.records()
-        .map(|rec| {
-            let rec = rec.unwrap();
-            h.iter()
-                .zip(rec.iter())
-                .map(|(a, b)| (a.to_string(), b.to_string()))
-                .collect()
-        })
-        .collect()
 }
 
 /// The planted defect of each unit, from the ground truth.
@@ -372,11 +292,7 @@ fn one_thread_gives_the_bytes_of_two_and_a_rerun_recomputes_nothing() {
 }
 
 fn copy_study(to: &Path) {
-    for (rel, bytes) in tree(study()) {
-        let p = to.join(rel);
-        std::fs::create_dir_all(p.parent().unwrap()).unwrap();
-        std::fs::write(p, bytes).unwrap();
-    }
+    copy_tree(study(), to);
 }
 
 #[test]
@@ -646,11 +562,7 @@ fn a_failed_report_keeps_the_cohort_results() {
     let reference = reference_run();
     let d = scratch("report-fails");
     let out = d.join("out");
-    for (rel, bytes) in tree(reference) {
-        let p = out.join(rel);
-        std::fs::create_dir_all(p.parent().unwrap()).unwrap();
-        std::fs::write(p, bytes).unwrap();
-    }
+    copy_tree(reference, &out);
     std::fs::remove_file(out.join("group/desc-cohort_qc.csv")).unwrap();
     // A folder where the report goes: the final rename must fail.
     let blocker = out.join("group/desc-cohort_report.html");

@@ -11,125 +11,41 @@
 //! the warp is a diffeomorphism, so no triangle folds; outputs are the
 //! same bytes for any thread count.
 
-use std::collections::BTreeMap;
+mod common;
+
+use common::{labels, ok, qc, tree};
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
-const BIN: &str = env!("CARGO_BIN_EXE_horosphere");
+const BIN: &str = common::BIN;
 const SUBJECTS: usize = 4;
 
 fn scratch(tag: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!(
-        "horosphere-cohort-register-{tag}-{}",
-        std::process::id()
-    ));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).unwrap();
-    d
-}
-
-fn ok(out: std::process::Output) -> String {
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    String::from_utf8_lossy(&out.stdout).into_owned()
+    common::scratch("cohort-register", tag)
 }
 
 fn manifest(dir: &Path, name: &str, root: &Path, output: &Path, register: &str) -> PathBuf {
-    let pipelines = Path::new(env!("CARGO_MANIFEST_DIR")).join("pipelines");
-    let text = format!(
-        r#"[study]
-root = "{}"
-output = "{}"
-hemispheres = ["L"]
-[inputs]
-surface = "white"
-maps = ["thickness", "depth"]
-landmarks = "landmarks"
-template = "{}/demo-template-{{hemi}}.toml"
-[resample]
-target = "icosphere:3"
-{register}
-"#,
-        root.display(),
-        output.display(),
-        pipelines.display()
-    );
-    let p = dir.join(name);
-    std::fs::write(&p, text).unwrap();
-    p
+    common::write_manifest(
+        &dir.join(name),
+        root,
+        output,
+        "hemispheres = [\"L\"]\n",
+        "[\"thickness\", \"depth\"]",
+        &format!("[resample]\ntarget = \"icosphere:3\"\n{register}\n"),
+    )
 }
 
 fn run(manifest: &Path, extra: &[&str]) -> serde_json::Value {
-    let out = Command::new(BIN)
-        .arg("run")
-        .arg(manifest)
-        .arg("--json")
-        .args(extra)
-        .output()
-        .unwrap();
-    let stderr = String::from_utf8_lossy(&out.stderr).into_owned();
-    assert_eq!(out.status.code(), Some(0), "{stderr}");
-    serde_json::from_slice(&out.stdout).unwrap_or_else(|e| panic!("{e}: {stderr}"))
-}
-
-/// Every file under `dir` (relative path -> bytes).
-fn tree(dir: &Path) -> BTreeMap<String, Vec<u8>> {
-    let mut out = BTreeMap::new();
-    let mut stack = vec![dir.to_path_buf()];
-    while let Some(d) = stack.pop() {
-        for e in std::fs::read_dir(&d).unwrap() {
-            let p = e.unwrap().path();
-            if p.is_dir() {
-                stack.push(p);
-            } else {
-                let rel = p.strip_prefix(dir).unwrap().to_string_lossy().into_owned();
-                out.insert(rel, std::fs::read(&p).unwrap());
-            }
-        }
-    }
-    out
-}
-
-fn qc(output: &Path) -> Vec<BTreeMap<String, String>> {
-    let mut r = csv::Reader::from_path(output.join("group/desc-cohort_qc.csv")).unwrap();
-    let h = r.headers().unwrap().clone();
-    r.records()
-        .map(|rec| {
-            let rec = rec.unwrap();
-            h.iter()
-                .zip(rec.iter())
-                .map(|(a, b)| (a.to_string(), b.to_string()))
-                .collect()
-        })
-        .collect()
-}
-
-fn labels(study: &Path) -> Vec<String> {
-    let mut out: Vec<String> = std::fs::read_dir(study)
-        .unwrap()
-        .filter_map(|e| {
-            let n = e.unwrap().file_name().to_string_lossy().into_owned();
-            n.starts_with("sub-").then_some(n)
-        })
-        .collect();
-    out.sort();
-    out
+    let out = common::run_json_output(manifest, extra);
+    assert_eq!(out.status.code(), Some(0), "{}", common::stderr(&out));
+    common::json(&out)
 }
 
 #[test]
 fn registration_stage_raises_the_feature_correlation_without_folds_for_any_thread_count() {
     let base = scratch("main");
     let study = base.join("study");
-    ok(Command::new(BIN)
-        .args(["demo", "--out"])
-        .arg(&study)
-        .args(["--subjects", &SUBJECTS.to_string()])
-        .args(["--vertices", "2000", "--seed", "4", "--no-defects"])
-        .output()
-        .unwrap());
+    common::demo_study(&study, SUBJECTS, 2000, 4, &["--no-defects"]);
     let subs = labels(&study);
     assert_eq!(subs.len(), SUBJECTS);
 

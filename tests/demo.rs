@@ -9,6 +9,8 @@
 //! imaging data structure", Sci. Data 3, 2016). nibabel reads the same files
 //! in tests/reference/test_demo_nibabel.py.
 
+mod common;
+
 use horosphere::inspect::{inspect, InspectOptions};
 use horosphere::io::gifti;
 use horosphere::mesh::intersect::self_intersections;
@@ -40,22 +42,14 @@ fn demo(out: &Path, threads: &str, extra: &[&str]) -> std::process::Output {
 
 /// Relative path -> SHA-256 of every file under `dir`.
 fn digests(dir: &Path) -> BTreeMap<String, String> {
-    let mut out = BTreeMap::new();
-    let mut stack = vec![dir.to_path_buf()];
-    while let Some(d) = stack.pop() {
-        for e in std::fs::read_dir(&d).unwrap() {
-            let p = e.unwrap().path();
-            if p.is_dir() {
-                stack.push(p);
-            } else {
-                let rel = p.strip_prefix(dir).unwrap().to_string_lossy().into_owned();
-                let h = Sha256::digest(std::fs::read(&p).unwrap());
-                let hex: String = h.iter().map(|b| format!("{b:02x}")).collect();
-                out.insert(rel, hex);
-            }
-        }
-    }
-    out
+    common::tree(dir)
+        .into_iter()
+        .map(|(rel, bytes)| {
+            let h = Sha256::digest(bytes);
+            let hex: String = h.iter().map(|b| format!("{b:02x}")).collect();
+            (rel, hex)
+        })
+        .collect()
 }
 
 #[test]

@@ -4,28 +4,14 @@
 //! subjects, 2,000 vertices per hemisphere, seed 3). Platform notes:
 //! docs/determinism.md.
 
+mod common;
+
+use common::tree;
 use std::collections::BTreeMap;
 use std::path::Path;
 use std::process::Command;
 
-const BIN: &str = env!("CARGO_BIN_EXE_horosphere");
-
-fn tree(dir: &Path) -> BTreeMap<String, Vec<u8>> {
-    let mut out = BTreeMap::new();
-    let mut stack = vec![dir.to_path_buf()];
-    while let Some(d) = stack.pop() {
-        for e in std::fs::read_dir(&d).unwrap() {
-            let p = e.unwrap().path();
-            if p.is_dir() {
-                stack.push(p);
-            } else {
-                let rel = p.strip_prefix(dir).unwrap().to_string_lossy().into_owned();
-                out.insert(rel, std::fs::read(&p).unwrap());
-            }
-        }
-    }
-    out
-}
+const BIN: &str = common::BIN;
 
 /// Run `args` (`{o}` = the output folder of this attempt) with `threads`
 /// rayon threads; return stdout and every file written under the folder.
@@ -163,18 +149,7 @@ fn every_command_gives_the_same_bytes_for_any_thread_count_and_on_repeat() {
 
     // run (the cohort): --jobs 1 with 1 rayon thread against --jobs 2 with 2.
     let pipelines = Path::new(env!("CARGO_MANIFEST_DIR")).join("pipelines");
-    let manifest = base.join("cohort.toml");
-    std::fs::write(
-        &manifest,
-        format!(
-            "[study]\nroot = \"{}\"\noutput = \"out\"\n[inputs]\nsurface = \"white\"\nmaps = [\"thickness\", \"regions\"]\n\
-             landmarks = \"landmarks\"\ntemplate = \"{}/demo-template-{{hemi}}.toml\"\n[map]\npole = \"repair-added\"\n\
-             [resample]\ntarget = \"icosphere:3\"\n",
-            study.display(),
-            pipelines.display()
-        ),
-    )
-    .unwrap();
+    let manifest = common::manifest(&base, &study, Path::new("out"));
     let run = |tag: &str, jobs: &str| {
         attempt(
             &base,

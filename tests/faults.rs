@@ -15,83 +15,31 @@
 //! (d) two runs on one output folder -> the second is refused with a
 //!     message naming the lock file; unit jobs (`--units-only --only`) share it.
 
+mod common;
+
+// A killed run may leave folders that vanish while they are listed: this
+// file's walks skip what cannot be read.
+use common::{manifest, run_output as run, tree_if_present as tree};
 use horosphere::synth::rng::SplitMix64;
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
-use std::process::{Command, Output, Stdio};
+use std::process::{Command, Stdio};
 use std::sync::OnceLock;
 use std::time::{Duration, Instant};
 
-const BIN: &str = env!("CARGO_BIN_EXE_horosphere");
+const BIN: &str = common::BIN;
 
 fn scratch(tag: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("horosphere-faults-{tag}-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).unwrap();
-    d
+    common::scratch("faults", tag)
 }
 
 fn study() -> &'static Path {
     static DIR: OnceLock<PathBuf> = OnceLock::new();
     DIR.get_or_init(|| {
         let d = scratch("study");
-        let out = Command::new(BIN)
-            .args(["demo", "--out"])
-            .arg(&d)
-            .args(["--subjects", "2", "--vertices", "2000", "--seed", "11"])
-            .output()
-            .unwrap();
-        assert!(
-            out.status.success(),
-            "{}",
-            String::from_utf8_lossy(&out.stderr)
-        );
+        common::demo_study(&d, 2, 2000, 11, &[]);
         d
     })
-}
-
-fn manifest(dir: &Path, root: &Path, output: &Path) -> PathBuf {
-    let pipelines = Path::new(env!("CARGO_MANIFEST_DIR")).join("pipelines");
-    let text = format!(
-        "[study]\nroot = \"{}\"\noutput = \"{}\"\n[inputs]\nsurface = \"white\"\nmaps = [\"thickness\", \"regions\"]\n\
-         landmarks = \"landmarks\"\ntemplate = \"{}/demo-template-{{hemi}}.toml\"\n[map]\npole = \"repair-added\"\n\
-         [resample]\ntarget = \"icosphere:3\"\n",
-        root.display(),
-        output.display(),
-        pipelines.display()
-    );
-    let p = dir.join("cohort.toml");
-    std::fs::write(&p, text).unwrap();
-    p
-}
-
-fn run(m: &Path, extra: &[&str], env: &[(&str, &str)]) -> Output {
-    let mut c = Command::new(BIN);
-    c.arg("run").arg(m).args(extra);
-    for (k, v) in env {
-        c.env(k, v);
-    }
-    c.output().unwrap()
-}
-
-fn tree(dir: &Path) -> BTreeMap<String, Vec<u8>> {
-    let mut out = BTreeMap::new();
-    let mut stack = vec![dir.to_path_buf()];
-    while let Some(d) = stack.pop() {
-        let Ok(rd) = std::fs::read_dir(&d) else {
-            continue;
-        };
-        for e in rd {
-            let p = e.unwrap().path();
-            if p.is_dir() {
-                stack.push(p);
-            } else {
-                let rel = p.strip_prefix(dir).unwrap().to_string_lossy().into_owned();
-                out.insert(rel, std::fs::read(&p).unwrap());
-            }
-        }
-    }
-    out
 }
 
 fn assert_same_tree(want: &BTreeMap<String, Vec<u8>>, dir: &Path, what: &str) {
@@ -125,11 +73,7 @@ fn clean() -> &'static (BTreeMap<String, Vec<u8>>, Duration) {
 }
 
 fn copy_study(to: &Path) {
-    for (rel, bytes) in tree(study()) {
-        let p = to.join(rel);
-        std::fs::create_dir_all(p.parent().unwrap()).unwrap();
-        std::fs::write(p, bytes).unwrap();
-    }
+    common::copy_tree(study(), to);
 }
 
 #[test]

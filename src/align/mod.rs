@@ -255,6 +255,59 @@ pub(crate) fn csv_rows<'a>(
     })
 }
 
+/// The rows of a subject table opened by [`open_csv`] (first column the
+/// subject label; shared by the landmark and feature cohort tables): each
+/// row's line number and cells, once every cell of `required` (column,
+/// name) is filled and the subject is not listed on an earlier line.
+/// Errors name the table and the line; a table without rows is an error.
+pub(crate) fn subject_rows(
+    path: &std::path::Path,
+    rdr: &mut CsvReader,
+    required: &[(usize, &str)],
+) -> Result<Vec<(usize, csv::StringRecord)>> {
+    let mut rows: Vec<(usize, csv::StringRecord)> = Vec::new();
+    for row in csv_rows(path, rdr) {
+        let (line, element, rec) = row?;
+        let field = |i: usize| rec.get(i).unwrap_or("");
+        for &(i, what) in required {
+            if field(i).is_empty() {
+                return Err(Error::bad_file(
+                    path,
+                    &element,
+                    format!("empty `{what}` cell"),
+                ));
+            }
+        }
+        if rows.iter().any(|(_, r)| r.get(0).unwrap_or("") == field(0)) {
+            return Err(Error::bad_file(
+                path,
+                &element,
+                format!("subject `{}` is listed twice", field(0)),
+            ));
+        }
+        rows.push((line, rec));
+    }
+    if rows.is_empty() {
+        return Err(Error::bad_file(
+            path,
+            "rows",
+            "no subjects; expected at least one row",
+        ));
+    }
+    Ok(rows)
+}
+
+/// A path cell of the table `table`: an absolute path as it stands, a
+/// relative one taken from the table's folder.
+pub(crate) fn table_path(table: &std::path::Path, cell: &str) -> std::path::PathBuf {
+    let p = std::path::Path::new(cell);
+    if p.is_absolute() {
+        p.to_path_buf()
+    } else {
+        table.parent().unwrap_or(std::path::Path::new("")).join(p)
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -412,5 +465,46 @@ mod tests {
         }
         let e = unit_directions(&off).unwrap_err().to_string();
         assert!(e.contains("vertex"), "{e}");
+    }
+
+    #[test]
+    fn subject_rows_check_cells_repeats_and_emptiness() {
+        let path = std::path::Path::new("/data/study/table.csv");
+        let rows = |text: &str| {
+            let (mut rdr, _) = csv_from_bytes(path, text.as_bytes().to_vec()).unwrap();
+            subject_rows(path, &mut rdr, &[(0, "subject"), (1, "sphere")])
+        };
+        let ok = rows("subject,sphere,x\na,a.gii,\nb,b.gii,1\n").unwrap();
+        let got: Vec<(usize, String)> = ok.iter().map(|(l, r)| (*l, r[0].to_string())).collect();
+        assert_eq!(got, vec![(2, "a".to_string()), (3, "b".to_string())]);
+        let e = rows("subject,sphere\na,a.gii\nb,\n")
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("table.csv") && e.contains("line 3") && e.contains("empty `sphere` cell"),
+            "{e}"
+        );
+        let e = rows("subject,sphere\na,a.gii\nb,b.gii\na,c.gii\n")
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("line 4") && e.contains("subject `a` is listed twice"),
+            "{e}"
+        );
+        let e = rows("subject,sphere\n").unwrap_err().to_string();
+        assert!(e.contains("no subjects"), "{e}");
+        // Paths: relative ones from the table's folder, absolute ones kept.
+        assert_eq!(
+            table_path(path, "sub/a.gii"),
+            std::path::Path::new("/data/study/sub/a.gii")
+        );
+        assert_eq!(
+            table_path(path, "/elsewhere/a.gii"),
+            std::path::Path::new("/elsewhere/a.gii")
+        );
+        assert_eq!(
+            table_path(std::path::Path::new("t.csv"), "a.gii"),
+            std::path::Path::new("a.gii")
+        );
     }
 }

@@ -492,35 +492,15 @@ pub fn read_cohort(path: &Path) -> Result<Vec<CohortEntry>> {
             format!("found columns {header:?}; expected `subject,sphere,landmarks` or `subject,sphere,landmarks,surface`"),
         ));
     }
-    let base = path.parent().unwrap_or(Path::new(""));
-    let resolve = |s: &str| {
-        let p = Path::new(s);
-        if p.is_absolute() {
-            p.to_path_buf()
-        } else {
-            base.join(p)
-        }
-    };
-    let mut out: Vec<CohortEntry> = Vec::new();
-    for row in super::csv_rows(path, &mut rdr) {
-        let (line, element, rec) = row?;
+    let resolve = |s: &str| super::table_path(path, s);
+    let rows = super::subject_rows(
+        path,
+        &mut rdr,
+        &[(0, "subject"), (1, "sphere"), (2, "landmarks")],
+    )?;
+    let mut out: Vec<CohortEntry> = Vec::with_capacity(rows.len());
+    for (line, rec) in rows {
         let field = |i: usize| rec.get(i).unwrap_or("");
-        for (i, what) in [(0, "subject"), (1, "sphere"), (2, "landmarks")] {
-            if field(i).is_empty() {
-                return Err(Error::bad_file(
-                    path,
-                    &element,
-                    format!("empty `{what}` cell"),
-                ));
-            }
-        }
-        if out.iter().any(|e| e.subject == field(0)) {
-            return Err(Error::bad_file(
-                path,
-                &element,
-                format!("subject `{}` is listed twice", field(0)),
-            ));
-        }
         let surface = if has_surface && !field(3).is_empty() {
             Some(resolve(field(3)))
         } else {
@@ -533,13 +513,6 @@ pub fn read_cohort(path: &Path) -> Result<Vec<CohortEntry>> {
             surface,
             line,
         });
-    }
-    if out.is_empty() {
-        return Err(Error::bad_file(
-            path,
-            "rows",
-            "no subjects; expected at least one row",
-        ));
     }
     Ok(out)
 }

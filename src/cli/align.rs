@@ -31,8 +31,7 @@ use serde::Serialize;
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
-/// Exit status of `template` when some subjects were left out.
-const SOME_SUBJECTS_FAILED: u8 = 3;
+use super::subjects::{exit_code, left_out_note, load_subjects};
 
 /// The fit to the template.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
@@ -392,34 +391,20 @@ pub fn run_template(args: &TemplateArgs) -> Result<ExitCode> {
         )));
     }
     let cohort = read_cohort(&args.cohort)?;
-    let mut loaded = Vec::with_capacity(cohort.len());
-    let mut failed = 0usize;
-    for entry in &cohort {
-        match load_subject(
-            &entry.sphere,
-            entry.surface.as_deref(),
-            &entry.landmarks,
-            args.center,
-        ) {
-            Ok(s) => loaded.push((entry.subject.as_str(), s)),
-            Err(e) => {
-                failed += 1;
-                eprintln!(
-                    "horosphere: {} line {} (subject {}): left out: {e}",
-                    args.cohort.display(),
-                    entry.line,
-                    entry.subject
-                );
-            }
-        }
-    }
-    if loaded.is_empty() {
-        return Err(Error::bad_file(
-            &args.cohort,
-            "subjects",
-            "no subject could be read; no template written",
-        ));
-    }
+    let (loaded, failed) = load_subjects(
+        &args.cohort,
+        &cohort,
+        |e| (e.line, e.subject.as_str()),
+        |entry| {
+            load_subject(
+                &entry.sphere,
+                entry.surface.as_deref(),
+                &entry.landmarks,
+                args.center,
+            )
+            .map(|s| (entry.subject.as_str(), s))
+        },
+    )?;
     let subjects: Vec<TemplateSubject> = loaded
         .iter()
         .map(|(id, s)| TemplateSubject {
@@ -446,15 +431,7 @@ pub fn run_template(args: &TemplateArgs) -> Result<ExitCode> {
         t.landmarks.len(),
         subjects.len(),
         iterations,
-        if failed > 0 {
-            format!(" ({failed} left out)")
-        } else {
-            String::new()
-        }
+        left_out_note(failed)
     );
-    Ok(if failed > 0 {
-        ExitCode::from(SOME_SUBJECTS_FAILED)
-    } else {
-        ExitCode::SUCCESS
-    })
+    Ok(exit_code(failed))
 }

@@ -22,6 +22,7 @@ mod run;
 mod sample;
 mod sphere;
 mod stats;
+mod subjects;
 
 /// Cortical surfaces of a cohort to one common sphere. Research use only:
 /// not a medical device; results need review by a trained analyst.

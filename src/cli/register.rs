@@ -25,8 +25,7 @@ use horosphere::{Error, Result};
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
-/// Exit status of `register-template` when some subjects were left out.
-const SOME_SUBJECTS_FAILED: u8 = 3;
+use super::subjects::{exit_code, left_out_note, load_subjects};
 
 /// Options shared by both commands.
 #[derive(Debug, Args)]
@@ -231,29 +230,12 @@ pub fn run_register(args: &RegisterArgs) -> Result<ExitCode> {
 /// Run `horosphere register-template`.
 pub fn run_template(args: &RegisterTemplateArgs) -> Result<ExitCode> {
     let (names, rows) = read_table(&args.cohort)?;
-    let mut subjects = Vec::with_capacity(rows.len());
-    let mut failed = 0usize;
-    for row in &rows {
-        match load(&row.sphere, &row.features) {
-            Ok(s) => subjects.push(s),
-            Err(e) => {
-                failed += 1;
-                eprintln!(
-                    "horosphere: {} line {} (subject {}): left out: {e}",
-                    args.cohort.display(),
-                    row.line,
-                    row.subject
-                );
-            }
-        }
-    }
-    if subjects.is_empty() {
-        return Err(Error::bad_file(
-            &args.cohort,
-            "subjects",
-            "no subject could be read; no template written",
-        ));
-    }
+    let (subjects, failed) = load_subjects(
+        &args.cohort,
+        &rows,
+        |r| (r.line, r.subject.as_str()),
+        |row| load(&row.sphere, &row.features),
+    )?;
     let opts = TemplateOptions {
         level: args.level,
         rounds: args.rounds,
@@ -294,16 +276,8 @@ pub fn run_template(args: &RegisterTemplateArgs) -> Result<ExitCode> {
                 ", last change {:.4}, mean correlation {:.3}",
                 r.change, r.mean_correlation
             )),
-            if failed > 0 {
-                format!(" ({failed} left out)")
-            } else {
-                String::new()
-            }
+            left_out_note(failed)
         );
     }
-    Ok(if failed > 0 {
-        ExitCode::from(SOME_SUBJECTS_FAILED)
-    } else {
-        ExitCode::SUCCESS
-    })
+    Ok(exit_code(failed))
 }

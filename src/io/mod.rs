@@ -291,6 +291,40 @@ pub(crate) fn write_validated(
     atomic::write_atomic(path, |w| write_to(w, mesh).map_err(|e| Error::io(path, e)))
 }
 
+/// Checks shared by the unit tests of the text and binary mesh readers.
+#[cfg(test)]
+pub(crate) mod test_support {
+    use crate::error::{Error, Result};
+    use crate::mesh::TriMesh;
+    use std::path::Path;
+
+    /// The message of the [`Error::BadFile`] a reader gave; fails on a
+    /// success or on any other kind of error.
+    pub fn bad_file_message<T: std::fmt::Debug>(r: Result<T>) -> String {
+        let e = r.unwrap_err();
+        assert!(matches!(e, Error::BadFile { .. }), "{e}");
+        e.to_string()
+    }
+
+    /// Write every mesh with `write` to `file` in a scratch folder named
+    /// after `tag`, read it back with `read`: the same mesh, to the bit.
+    pub fn assert_round_trip(
+        tag: &str,
+        file: &str,
+        meshes: &[TriMesh],
+        write: impl Fn(&Path, &TriMesh) -> Result<()>,
+        read: impl Fn(&Path) -> Result<TriMesh>,
+    ) {
+        let dir = std::env::temp_dir().join(format!("horosphere-{tag}-{}", std::process::id()));
+        let file = dir.join(file);
+        for m in meshes {
+            write(&file, m).unwrap();
+            assert_eq!(&read(&file).unwrap(), m, "{tag}");
+        }
+        std::fs::remove_dir_all(&dir).unwrap();
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

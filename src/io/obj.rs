@@ -163,6 +163,7 @@ pub fn write_mesh(path: &Path, mesh: &TriMesh) -> Result<()> {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::io::test_support::{assert_round_trip, bad_file_message};
     use crate::mesh::shapes::{icosphere, torus};
 
     fn p() -> &'static Path {
@@ -170,20 +171,13 @@ mod tests {
     }
 
     fn err(text: &str) -> String {
-        let e = parse(p(), text.as_bytes()).unwrap_err();
-        assert!(matches!(e, Error::BadFile { .. }), "{e}");
-        e.to_string()
+        bad_file_message(parse(p(), text.as_bytes()))
     }
 
     #[test]
     fn round_trip_is_exact() {
-        let dir = std::env::temp_dir().join(format!("horosphere-obj-{}", std::process::id()));
-        let file = dir.join("t.obj");
-        for m in [icosphere(2, 73.25), torus(3.0, 1.1, 17, 9)] {
-            write_mesh(&file, &m).unwrap();
-            assert_eq!(read_mesh(&file).unwrap(), m);
-        }
-        std::fs::remove_dir_all(&dir).unwrap();
+        let meshes = [icosphere(2, 73.25), torus(3.0, 1.1, 17, 9)];
+        assert_round_trip("obj", "t.obj", &meshes, write_mesh, read_mesh);
     }
 
     #[test]

@@ -240,6 +240,7 @@ pub fn write_mesh(path: &Path, mesh: &TriMesh) -> Result<()> {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::io::test_support::{assert_round_trip, bad_file_message};
     use crate::mesh::shapes::{icosphere, torus};
 
     fn p() -> &'static Path {
@@ -247,20 +248,13 @@ mod tests {
     }
 
     fn err(text: &str) -> String {
-        let e = parse(p(), text.as_bytes()).unwrap_err();
-        assert!(matches!(e, Error::BadFile { .. }), "{e}");
-        e.to_string()
+        bad_file_message(parse(p(), text.as_bytes()))
     }
 
     #[test]
     fn round_trip_is_exact() {
-        let dir = std::env::temp_dir().join(format!("horosphere-off-{}", std::process::id()));
-        let file = dir.join("t.off");
-        for m in [icosphere(2, 0.001), torus(30.0, 7.5, 13, 8)] {
-            write_mesh(&file, &m).unwrap();
-            assert_eq!(read_mesh(&file).unwrap(), m);
-        }
-        std::fs::remove_dir_all(&dir).unwrap();
+        let meshes = [icosphere(2, 0.001), torus(30.0, 7.5, 13, 8)];
+        assert_round_trip("off", "t.off", &meshes, write_mesh, read_mesh);
     }
 
     #[test]

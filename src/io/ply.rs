@@ -725,6 +725,7 @@ pub fn write_mesh_as(path: &Path, mesh: &TriMesh, encoding: PlyEncoding) -> Resu
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::io::test_support::{assert_round_trip, bad_file_message};
     use crate::mesh::shapes::{icosphere, torus};
 
     fn p() -> &'static Path {
@@ -732,9 +733,7 @@ mod tests {
     }
 
     fn err(bytes: &[u8]) -> String {
-        let e = parse(p(), bytes).unwrap_err();
-        assert!(matches!(e, Error::BadFile { .. }), "{e}");
-        e.to_string()
+        bad_file_message(parse(p(), bytes))
     }
 
     fn to_bytes(m: &TriMesh, enc: PlyEncoding) -> Vec<u8> {
@@ -751,15 +750,12 @@ mod tests {
 
     #[test]
     fn round_trip_is_exact_in_every_encoding() {
-        let dir = std::env::temp_dir().join(format!("horosphere-ply-{}", std::process::id()));
-        let file = dir.join("t.ply");
-        for m in [icosphere(2, 99.5), torus(3.0, 1.25, 11, 7)] {
-            for enc in ENCODINGS {
-                write_mesh_as(&file, &m, enc).unwrap();
-                assert_eq!(read_mesh(&file).unwrap(), m, "{enc:?}");
-            }
+        let meshes = [icosphere(2, 99.5), torus(3.0, 1.25, 11, 7)];
+        for enc in ENCODINGS {
+            let tag = format!("ply-{enc:?}");
+            let write = |f: &Path, m: &TriMesh| write_mesh_as(f, m, enc);
+            assert_round_trip(&tag, "t.ply", &meshes, write, read_mesh);
         }
-        std::fs::remove_dir_all(&dir).unwrap();
     }
 
     /// Hand-assembled binary file with float coordinates, extra properties,

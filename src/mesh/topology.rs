@@ -4,11 +4,13 @@
 //! In: a [`TriMesh`] (only its faces matter). Out: the undirected edge table
 //! with the faces on each edge, connected components, boundary loops and the
 //! Euler characteristic `V - E + F = 2 - 2g - b` per component (Massey, "A
-//! basic course in algebraic topology", 1991). Edges are identified here by
+//! basic course in algebraic topology", 1991), and the neighbour lists of
+//! the vertices (CSR). Edges are identified here by
 //! their end vertices, which is right for an indexed mesh; the halfedge
 //! Delta-complex ([`super::halfedge`]) never does that.
 
 use super::TriMesh;
+use rayon::prelude::*;
 
 /// One side of an edge: face `face` traverses the edge from its corner `slot`
 /// to corner `(slot + 1) % 3`.
@@ -204,6 +206,34 @@ impl UnionFind {
     }
 }
 
+/// The neighbours of every vertex, in CSR layout `(start, list)`: the
+/// neighbours of vertex `i` are `list[start[i]..start[i + 1]]`, sorted by
+/// index, each once. Two vertices are neighbours when a face has them at
+/// consecutive corners (either order); a face with a repeated index makes a
+/// vertex its own neighbour. `start` has `n + 1` entries; every index in
+/// `faces` must be below `n`. Same result for any thread count (the pairs
+/// are totally ordered, so the parallel sort has one outcome).
+pub fn vertex_neighbours(n: usize, faces: &[[u32; 3]]) -> (Vec<usize>, Vec<u32>) {
+    let mut pairs: Vec<(u32, u32)> = Vec::with_capacity(faces.len() * 6);
+    for t in faces {
+        for k in 0..3 {
+            let (a, b) = (t[k], t[(k + 1) % 3]);
+            pairs.push((a, b));
+            pairs.push((b, a));
+        }
+    }
+    pairs.par_sort_unstable();
+    pairs.dedup();
+    let mut start = vec![0usize; n + 1];
+    for &(a, _) in &pairs {
+        start[a as usize + 1] += 1;
+    }
+    for i in 0..n {
+        start[i + 1] += start[i];
+    }
+    (start, pairs.into_iter().map(|p| p.1).collect())
+}
+
 /// Connected components of the faces (two faces are connected when they share
 /// a vertex). Returns the component of every face, numbered 0.. in order of
 /// decreasing face count (ties: smallest first face first), and the count.
@@ -350,5 +380,31 @@ mod tests {
         assert_eq!(n, 2);
         assert_eq!(comp[0], 1, "the small icosahedron comes second");
         assert_eq!(comp[b.n_faces()], 0);
+    }
+
+    #[test]
+    fn vertex_neighbours_of_the_icosahedron_and_a_tetrahedron() {
+        // Icosahedron: every vertex has 5 neighbours (E = 30 edges, each
+        // listed from both ends), all at the edge length of the solid.
+        let m = icosphere(0, 1.0);
+        let (start, list) = vertex_neighbours(m.n_vertices(), &m.faces);
+        assert_eq!(start.len(), 13);
+        assert_eq!(start[12], 60);
+        let edge = 4.0 / (10.0 + 2.0 * 5f64.sqrt()).sqrt(); // circumradius 1
+        for i in 0..12 {
+            let ns = &list[start[i]..start[i + 1]];
+            assert_eq!(ns.len(), 5, "vertex {i}");
+            assert!(ns.windows(2).all(|w| w[0] < w[1]), "{ns:?} not sorted");
+            for &j in ns {
+                let d = super::super::dist(m.positions[i], m.positions[j as usize]);
+                assert!((d - edge).abs() < 1e-9, "{i}-{j}: {d} vs {edge}");
+                assert!(list[start[j as usize]..start[j as usize + 1]].contains(&(i as u32)));
+            }
+        }
+        // A tetrahedron (faces in any orientation) and an isolated vertex 4.
+        let faces = [[0, 2, 1], [0, 1, 3], [1, 2, 3], [0, 3, 2]];
+        let (start, list) = vertex_neighbours(5, &faces);
+        assert_eq!(start, vec![0, 3, 6, 9, 12, 12]);
+        assert_eq!(list, vec![1, 2, 3, 0, 2, 3, 0, 1, 3, 0, 1, 2]);
     }
 }

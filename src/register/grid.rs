@@ -18,6 +18,7 @@
 //! interpolated fields are continuous.
 
 use crate::mesh::shapes::icosphere;
+use crate::mesh::topology::vertex_neighbours;
 use crate::mesh::{cross, dot, norm, scale, sub, Vec3};
 
 /// Number of vertices of the icosphere of level `k`.
@@ -60,7 +61,7 @@ impl IcoGrid {
         let neighbours = faces
             .iter()
             .enumerate()
-            .map(|(k, f)| csr_neighbours(n_vertices(k as u32), f))
+            .map(|(k, f)| vertex_neighbours(n_vertices(k as u32), f))
             .collect();
         IcoGrid {
             points,
@@ -254,27 +255,6 @@ pub fn unit(x: Vec3) -> Vec3 {
 /// Angle between two directions (radians), stable for small angles.
 pub fn angle(a: Vec3, b: Vec3) -> f64 {
     norm(cross(a, b)).atan2(dot(a, b))
-}
-
-fn csr_neighbours(n: usize, faces: &[[u32; 3]]) -> (Vec<usize>, Vec<u32>) {
-    let mut lists: Vec<Vec<u32>> = vec![Vec::with_capacity(6); n];
-    for t in faces {
-        for k in 0..3 {
-            let (a, b) = (t[k], t[(k + 1) % 3]);
-            lists[a as usize].push(b);
-            lists[b as usize].push(a);
-        }
-    }
-    let mut off = Vec::with_capacity(n + 1);
-    let mut list = Vec::with_capacity(6 * n);
-    off.push(0);
-    for mut l in lists {
-        l.sort_unstable();
-        l.dedup();
-        list.extend_from_slice(&l);
-        off.push(list.len());
-    }
-    (off, list)
 }
 
 #[cfg(test)]

@@ -489,49 +489,24 @@ pub fn read_table(path: &Path) -> Result<(Vec<String>, Vec<TableRow>)> {
             ));
         }
     }
-    let base = path.parent().unwrap_or(Path::new(""));
-    let resolve = |s: &str| {
-        let p = Path::new(s);
-        if p.is_absolute() {
-            p.to_path_buf()
-        } else {
-            base.join(p)
-        }
-    };
-    let mut rows: Vec<TableRow> = Vec::new();
-    for row in crate::align::csv_rows(path, &mut rdr) {
-        let (line, element, rec) = row?;
-        let field = |i: usize| rec.get(i).unwrap_or("");
-        for (i, what) in header.iter().enumerate() {
-            if field(i).is_empty() {
-                return Err(Error::bad_file(
-                    path,
-                    &element,
-                    format!("empty `{what}` cell"),
-                ));
+    let resolve = |s: &str| crate::align::table_path(path, s);
+    let required: Vec<(usize, &str)> = header
+        .iter()
+        .enumerate()
+        .map(|(i, h)| (i, h.as_str()))
+        .collect();
+    let rows = crate::align::subject_rows(path, &mut rdr, &required)?
+        .into_iter()
+        .map(|(line, rec)| {
+            let field = |i: usize| rec.get(i).unwrap_or("");
+            TableRow {
+                subject: field(0).to_string(),
+                sphere: resolve(field(1)),
+                features: (2..header.len()).map(|i| resolve(field(i))).collect(),
+                line,
             }
-        }
-        if rows.iter().any(|r| r.subject == field(0)) {
-            return Err(Error::bad_file(
-                path,
-                &element,
-                format!("subject `{}` is listed twice", field(0)),
-            ));
-        }
-        rows.push(TableRow {
-            subject: field(0).to_string(),
-            sphere: resolve(field(1)),
-            features: (2..header.len()).map(|i| resolve(field(i))).collect(),
-            line,
-        });
-    }
-    if rows.is_empty() {
-        return Err(Error::bad_file(
-            path,
-            "rows",
-            "no subjects; expected at least one row",
-        ));
-    }
+        })
+        .collect();
     Ok((names, rows))
 }
 

@@ -56,6 +56,7 @@
 use super::rng::{axis_angle, mat_vec, Rng};
 use super::sphere::{base_sphere, unit};
 use crate::error::{Error, Result};
+use crate::mesh::topology::vertex_neighbours;
 use crate::mesh::{add, cross, dot, norm, scale, sub, TriMesh, Vec3};
 use rayon::prelude::*;
 use serde::Serialize;
@@ -827,28 +828,6 @@ pub fn fold_field(params: &SurfaceParams, seed: u64) -> FoldField {
     field
 }
 
-/// Vertex neighbours from faces (CSR: `(start, list)`), sorted, no repeats.
-fn neighbours(n: usize, faces: &[[u32; 3]]) -> (Vec<usize>, Vec<u32>) {
-    let mut pairs: Vec<(u32, u32)> = Vec::with_capacity(faces.len() * 6);
-    for t in faces {
-        for k in 0..3 {
-            let (a, b) = (t[k], t[(k + 1) % 3]);
-            pairs.push((a, b));
-            pairs.push((b, a));
-        }
-    }
-    pairs.sort_unstable();
-    pairs.dedup();
-    let mut start = vec![0usize; n + 1];
-    for &(a, _) in &pairs {
-        start[a as usize + 1] += 1;
-    }
-    for i in 0..n {
-        start[i + 1] += start[i];
-    }
-    (start, pairs.into_iter().map(|p| p.1).collect())
-}
-
 /// One round of stretch-weighted relaxation on the sphere of directions.
 ///
 /// Each vertex moves half-way towards the weighted mean of its neighbours'
@@ -944,7 +923,7 @@ pub fn folded_surface(params: &SurfaceParams, seed: u64) -> Result<FoldedSurface
     };
     let mut rdn = radius_and_depth(&directions, None);
     if params.relax_rounds > 0 {
-        let nbrs = neighbours(directions.len(), &sphere.faces);
+        let nbrs = vertex_neighbours(directions.len(), &sphere.faces);
         for _ in 0..params.relax_rounds {
             let radii: Vec<f64> = rdn.iter().map(|r| r.0).collect();
             relax_round(&mut directions, &radii, &nbrs, &sphere.faces);

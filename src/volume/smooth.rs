@@ -10,6 +10,7 @@
 //! smoothing, it does not shrink the surface. Each step reads the previous
 //! positions only, so the result is the same for any number of threads.
 
+use crate::mesh::topology::vertex_neighbours;
 use crate::mesh::TriMesh;
 use rayon::prelude::*;
 
@@ -25,24 +26,7 @@ pub fn taubin(mesh: &mut TriMesh, iterations: usize, lambda: f64, mu: f64) {
     }
     let n = mesh.n_vertices();
     // Neighbour lists (CSR), each undirected edge once per end, sorted.
-    let mut pairs: Vec<(u32, u32)> = Vec::with_capacity(mesh.n_faces() * 6);
-    for t in &mesh.faces {
-        for k in 0..3 {
-            let (a, b) = (t[k], t[(k + 1) % 3]);
-            pairs.push((a, b));
-            pairs.push((b, a));
-        }
-    }
-    pairs.par_sort_unstable();
-    pairs.dedup();
-    let mut start = vec![0usize; n + 1];
-    for &(a, _) in &pairs {
-        start[a as usize + 1] += 1;
-    }
-    for i in 0..n {
-        start[i + 1] += start[i];
-    }
-    let nbr: Vec<u32> = pairs.iter().map(|p| p.1).collect();
+    let (start, nbr) = vertex_neighbours(n, &mesh.faces);
     let mut next = mesh.positions.clone();
     for _ in 0..iterations {
         for &w in &[lambda, mu] {
