@@ -1,6 +1,6 @@
 //! Determinism audit: every command gives the same bytes with one and with
 //! two threads (`RAYON_NUM_THREADS`, and `--jobs` for `run`), and again on
-//! a repeated run. Inputs: a synthetic cohort from our own generator (4
+//! a repeated run (the report once per thread count: it is the slowest). Inputs: a synthetic cohort from our own generator (4
 //! subjects, 2,000 vertices per hemisphere, seed 3). Platform notes:
 //! docs/determinism.md.
 
@@ -178,6 +178,7 @@ fn every_command_gives_the_same_bytes_for_any_thread_count_and_on_repeat() {
     // A unit that is ready to map as it is (no planted defect): its
     // landmark vertices and map lengths refer to the native surface.
     let mut unit = None;
+    let mut ready = Vec::new();
     for sub in ["sub-kf01", "sub-kf02", "sub-kf03", "sub-kf04"] {
         for h in ["L", "R"] {
             let surf = study
@@ -190,8 +191,11 @@ fn every_command_gives_the_same_bytes_for_any_thread_count_and_on_repeat() {
                 .output()
                 .unwrap();
             let v: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
-            if unit.is_none() && v["ready_to_map"] == true {
-                unit = Some((sub, h));
+            if v["ready_to_map"] == true {
+                if unit.is_none() {
+                    unit = Some((sub, h));
+                }
+                ready.push((sub, h));
             }
         }
     }
@@ -349,5 +353,191 @@ fn every_command_gives_the_same_bytes_for_any_thread_count_and_on_repeat() {
         ],
         true,
     );
+    more_commands(&base, &study, &out, &ready);
     let _ = std::fs::remove_dir_all(&base);
+}
+
+/// The commands added after the first audit: curvature, convert, the
+/// landmark template, the feature template and registration, the report,
+/// and the volume commands.
+fn more_commands(base: &Path, study: &Path, out: &Path, ready: &[(&str, &str)]) {
+    let p = |x: &Path| x.display().to_string();
+    let native = |sub: &str, h: &str, suffix: &str| {
+        p(&study.join(sub).join(format!("{sub}_hemi-{h}_{suffix}")))
+    };
+    let output = |sub: &str, h: &str, what: &str| {
+        p(&out.join(sub).join(format!(
+            "{sub}_hemi-{h}_space-individual_desc-{what}_sphere.surf.gii"
+        )))
+    };
+    let (sub, h) = ready[0];
+    let white = native(sub, h, "white.surf.gii");
+    same_bytes(
+        base,
+        "curvature",
+        &[
+            s("curvature"),
+            white.clone(),
+            s("-o"),
+            s("{o}/c.shape.gii"),
+            s("--json"),
+        ],
+        true,
+    );
+    same_bytes(
+        base,
+        "convert",
+        &[
+            s("convert"),
+            white.clone(),
+            s("{o}/w.surf.gii"),
+            s("--encoding"),
+            s("base64"),
+        ],
+        true,
+    );
+
+    // Tables over the units that needed no repair (their spheres keep the
+    // native vertex order, so native landmarks and maps fit them).
+    let same_hemi: Vec<&(&str, &str)> = ready.iter().filter(|(_, hh)| *hh == h).collect();
+    assert!(same_hemi.len() >= 2, "too few clean units: {ready:?}");
+    let mut landmark_table = String::from("subject,sphere,landmarks,surface\n");
+    let mut feature_table = String::from("subject,sphere,depth\n");
+    for (sb, hh) in &same_hemi {
+        landmark_table.push_str(&format!(
+            "{sb},{},{},{}\n",
+            output(sb, hh, "conformal"),
+            native(sb, hh, "landmarks.csv"),
+            native(sb, hh, "white.surf.gii")
+        ));
+        feature_table.push_str(&format!(
+            "{sb},{},{}\n",
+            output(sb, hh, "aligned"),
+            native(sb, hh, "depth.shape.gii")
+        ));
+    }
+    let lt = base.join("landmark-table.csv");
+    let ft = base.join("feature-table.csv");
+    std::fs::write(&lt, landmark_table).unwrap();
+    std::fs::write(&ft, feature_table).unwrap();
+    same_bytes(
+        base,
+        "template",
+        &[
+            s("template"),
+            s("--cohort"),
+            p(&lt),
+            s("-o"),
+            s("{o}/t.toml"),
+        ],
+        true,
+    );
+    same_bytes(
+        base,
+        "register-template",
+        &[
+            s("register-template"),
+            s("--cohort"),
+            p(&ft),
+            s("-o"),
+            s("{o}/tpl"),
+            s("--level"),
+            s("3"),
+            s("--rounds"),
+            s("1"),
+        ],
+        true,
+    );
+    let r = same_bytes(
+        base,
+        "register",
+        &[
+            s("register"),
+            output(sub, h, "aligned"),
+            s("--features"),
+            native(sub, h, "depth.shape.gii"),
+            s("--template"),
+            p(&base.join("register-template-1/tpl")),
+            s("-o"),
+            s("{o}/w.surf.gii"),
+        ],
+        true,
+    );
+    assert!(r.contains_key("w.surf.gii"));
+    let html = same_bytes(
+        base,
+        "report",
+        &[
+            s("report"),
+            p(out),
+            s("-o"),
+            s("{o}/r.html"),
+            s("--stats"),
+            p(&base.join("stats-1/st")),
+        ],
+        false,
+    );
+    assert!(html.contains_key("r.html"));
+
+    // A ball mask (our NIfTI writer) through extract, then sample.
+    let n = 20usize;
+    let mut values = vec![0.0; n * n * n];
+    for z in 0..n {
+        for y in 0..n {
+            for x in 0..n {
+                let d = [x, y, z].map(|c| c as f64 - 9.5);
+                if d.iter().map(|c| c * c).sum::<f64>() < 36.0 {
+                    values[x + n * (y + n * z)] = 1.0;
+                }
+            }
+        }
+    }
+    let affine = horosphere::volume::affine::Affine {
+        m: [
+            [1.5, 0.0, 0.0, -15.0],
+            [0.0, 1.5, 0.0, -15.0],
+            [0.0, 0.0, 1.5, -15.0],
+        ],
+    };
+    let mask = base.join("ball.nii");
+    std::fs::write(
+        &mask,
+        horosphere::volume::nifti::encode_nifti1(
+            &[n, n, n],
+            &values,
+            &affine,
+            horosphere::volume::nifti::StoreType::U8,
+        ),
+    )
+    .unwrap();
+    same_bytes(
+        base,
+        "extract",
+        &[
+            s("extract"),
+            p(&mask),
+            s("-o"),
+            s("{o}/e.surf.gii"),
+            s("--smooth"),
+            s("5"),
+            s("--json"),
+        ],
+        true,
+    );
+    same_bytes(
+        base,
+        "sample",
+        &[
+            s("sample"),
+            p(&mask),
+            s("--surface"),
+            p(&base.join("extract-1/e.surf.gii")),
+            s("-o"),
+            s("{o}/v.shape.gii"),
+            s("--offset"),
+            s("-0.5"),
+            s("--json"),
+        ],
+        true,
+    );
 }
