@@ -79,9 +79,7 @@ pub fn run(args: &CurvatureArgs) -> Result<ExitCode> {
         },
     };
     if args.json {
-        let text = serde_json::to_string_pretty(&s)
-            .map_err(|e| Error::Invalid(format!("cannot serialise the summary: {e}")))?;
-        println!("{text}");
+        super::print_json("summary", &s)?;
     } else {
         println!(
             "curvature: {} vertices of {}: min {:.4}, max {:.4}, area-weighted mean {:.5} 1/mm",

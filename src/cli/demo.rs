@@ -104,9 +104,7 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
     bar.finish_and_clear();
     let summary = summary?;
     if args.json {
-        let text = serde_json::to_string_pretty(&summary)
-            .map_err(|e| Error::Invalid(format!("summary: {e}")))?;
-        println!("{text}");
+        super::print_json("summary", &summary)?;
     } else {
         println!(
             "{}: {} subjects, {} files, {:.1} MB (synthetic)",

@@ -116,9 +116,7 @@ pub fn run(args: &ExtractArgs) -> Result<ExitCode> {
             extract: &report,
             topology,
         };
-        let text = serde_json::to_string_pretty(&s)
-            .map_err(|e| Error::Invalid(format!("cannot serialise the summary: {e}")))?;
-        println!("{text}");
+        super::print_json("summary", &s)?;
     } else {
         let m = &report.mask;
         println!("extract: {}", args.mask.display());

@@ -53,9 +53,7 @@ pub fn run(args: &InspectArgs) -> Result<ExitCode> {
     let mesh = horosphere::io::read_mesh(&args.mesh)?;
     let report = inspect(&mesh, &opts).map_err(|e| e.in_file(&args.mesh, "mesh"))?;
     if args.json {
-        let text = serde_json::to_string_pretty(&report)
-            .map_err(|e| Error::Invalid(format!("cannot serialise the report: {e}")))?;
-        println!("{text}");
+        super::print_json("report", &report)?;
     } else {
         print!("{}", render_text(&report, &args.mesh.display().to_string()));
     }

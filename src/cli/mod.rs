@@ -74,6 +74,15 @@ enum Command {
     Report(report::ReportArgs),
 }
 
+/// Print `value` as pretty JSON on stdout (the `--json` output of a
+/// command); `what` names it in the error.
+pub(crate) fn print_json<T: serde::Serialize>(what: &str, value: &T) -> horosphere::Result<()> {
+    let text = serde_json::to_string_pretty(value)
+        .map_err(|e| horosphere::Error::Invalid(format!("cannot serialise the {what}: {e}")))?;
+    println!("{text}");
+    Ok(())
+}
+
 /// Run the command line and return the exit status.
 pub fn main() -> ExitCode {
     let cli = Cli::parse();

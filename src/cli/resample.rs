@@ -310,9 +310,7 @@ pub fn run(args: &ResampleArgs) -> Result<ExitCode> {
             "target_smoothing": target_smooth_report,
             "outputs": written.iter().map(|p| p.display().to_string()).collect::<Vec<_>>(),
         });
-        let text = serde_json::to_string_pretty(&v)
-            .map_err(|e| Error::Invalid(format!("cannot serialise the report: {e}")))?;
-        println!("{text}");
+        super::print_json("report", &v)?;
     } else {
         println!(
             "subject sphere: {} vertices, {} hull triangles, {} duplicate and {} interior vertices not used",

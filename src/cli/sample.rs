@@ -129,9 +129,7 @@ pub fn run(args: &SampleArgs) -> Result<ExitCode> {
         mean,
     };
     if args.json {
-        let text = serde_json::to_string_pretty(&s)
-            .map_err(|e| Error::Invalid(format!("cannot serialise the summary: {e}")))?;
-        println!("{text}");
+        super::print_json("summary", &s)?;
     } else {
         println!(
             "sample: {} at {} vertices of {} ({:?}, offset {} mm)",
