@@ -18,7 +18,9 @@
 //!   piecewise linear on a coarse icosphere ([`field`]), so `phi` is a
 //!   diffeomorphism; the integration rule keeps every step injective, and
 //!   the Jacobian (signed area ratio per template triangle) is reported and
-//!   must show no folded triangle;
+//!   must show no folded triangle; where the subject's own (coarse)
+//!   triangles could not follow the warp, it is softened until none turns
+//!   over ([`embed`]);
 //! - features are z-scored per subject (area-weighted on the template
 //!   grid); a feature map of the wrong length, with a non-finite value, or
 //!   constant is refused with an error naming it;
