@@ -170,11 +170,15 @@ def main():
         r = json.load(open(os.path.join(reg, s, f"{s}_hemi-L_desc-pipeline_record.json")))
         if r.get("register"):
             corr.append((r["register"]["corr_before"], r["register"]["corr_after"],
-                         r["register"]["folded"]))
+                         r["register"]["folded"], r["register"].get("softened_triangles", 0),
+                         r["register"].get("identity_fallback", False)))
     result["register_corr_before_mean"] = float(np.mean([c[0] for c in corr]))
     result["register_corr_after_mean"] = float(np.mean([c[1] for c in corr]))
     result["register_rose_for"] = sum(1 for c in corr if c[1] > c[0])
     result["register_folded_total"] = sum(c[2] for c in corr)
+    result["register_units_softened"] = sum(1 for c in corr if c[3] > 0)
+    result["register_softened_triangles_total"] = sum(c[3] for c in corr)
+    result["register_identity_fallbacks"] = sum(1 for c in corr if c[4])
     for name, out in (("moebius", plain), ("registered", reg)):
         q, pv = stats(b, out, participants, os.path.join(w, f"stats-{name}-{tag}"))
         sig = np.nan_to_num(q, nan=1.0) < 0.05

@@ -407,7 +407,7 @@ fn cases(tmp: &Path) -> Vec<Case> {
             args: &["extract", "{d}/huge.nii", "-o", "{d}/out.surf.gii"],
             files: vec![("huge.nii", huge)],
             code: 1,
-            expect: &["huge.nii", "data", "expected 27000000000000"],
+            expect: &["huge.nii", "header dim", "27000000000000 voxels"],
             outputs: &["out.surf.gii"],
         },
         Case {

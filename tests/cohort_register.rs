@@ -62,6 +62,8 @@ fn registration_stage_raises_the_feature_correlation_without_folds_for_any_threa
             "register_corr_after",
             "register_jacobian_min",
             "register_folded",
+            "register_softened",
+            "register_identity_fallback",
         ] {
             assert_eq!(row[c], "", "{c} filled with the stage off");
         }
@@ -177,6 +179,12 @@ fn registration_stage_raises_the_feature_correlation_without_folds_for_any_threa
         assert_eq!(r["features"].as_array().map(|a| a.len()), Some(2), "{r}");
         // QC columns carry the record's figures.
         assert_eq!(row["register_folded"], "0");
+        assert_eq!(row["register_identity_fallback"], "false", "{row:?}");
+        assert_eq!(
+            row["register_softened"],
+            r["softened_triangles"].to_string(),
+            "{row:?}"
+        );
         let qb: f64 = row["register_corr_before"].parse().unwrap();
         let qa: f64 = row["register_corr_after"].parse().unwrap();
         assert_eq!((qb, qa), (before, after));

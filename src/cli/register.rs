@@ -195,8 +195,25 @@ pub fn run_register(args: &RegisterArgs) -> Result<ExitCode> {
         &opts,
         &observe,
     )
-    .map_err(|e| e.in_file(&args.sphere, "registration"))?;
+    .map_err(|e| e.in_file(&args.sphere, "registration"));
     bar.finish_and_clear();
+    let reg = reg?;
+    let e = &reg.report.embed;
+    if e.identity_fallback {
+        eprintln!(
+            "horosphere: warning: {}: the warp could not keep the subject mesh embedded even when halved {} times; the sphere is written unwarped",
+            args.sphere.display(),
+            e.global_halvings
+        );
+    } else if e.offenders_first > 0 {
+        eprintln!(
+            "horosphere: note: {}: the warp was softened around {} subject triangles it would have turned over or squashed ({} local rounds, {} global halvings; docs/register.md)",
+            args.sphere.display(),
+            e.offenders_first,
+            e.local_rounds,
+            e.global_halvings
+        );
+    }
     horosphere::io::write_mesh(&args.output, &reg.warped)?;
     let text = serde_json::to_string_pretty(&reg.report)
         .map_err(|e| Error::Invalid(format!("cannot serialise the report: {e}")))?;

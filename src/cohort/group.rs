@@ -26,7 +26,7 @@ use crate::resample::matrix::{cohort_gifti, CohortColumn};
 use std::path::PathBuf;
 
 /// Columns of the QC table, in order (documented in docs/user-guide.md).
-pub const QC_COLUMNS: [&str; 45] = [
+pub const QC_COLUMNS: [&str; 47] = [
     "subject",
     "hemi",
     "status",
@@ -72,6 +72,8 @@ pub const QC_COLUMNS: [&str; 45] = [
     "register_corr_after",
     "register_jacobian_min",
     "register_folded",
+    "register_softened",
+    "register_identity_fallback",
 ];
 
 /// What the cohort step wrote.
@@ -167,6 +169,9 @@ fn qc_row(u: &Unit, r: Option<&UnitRecord>) -> Vec<String> {
         num(g.and_then(|g| g.corr_after)),
         num(g.and_then(|g| g.jacobian_min)),
         num(g.map(|g| g.folded)),
+        num(g.map(|g| g.softened_triangles)),
+        g.map(|g| g.identity_fallback.to_string())
+            .unwrap_or_default(),
     ]
 }
 

@@ -258,6 +258,9 @@ pub struct RegisterFigures {
     /// (`register::embed`).
     pub softened_triangles: usize,
     pub soften_rounds: usize,
+    /// Every softening failed and the warp was given up (the unit's maps
+    /// are resampled from the aligned sphere).
+    pub identity_fallback: bool,
     pub mean_displacement_deg: Option<f64>,
     pub max_displacement_deg: Option<f64>,
 }
@@ -1199,6 +1202,7 @@ fn register_stage(
         iterations: rep.stages.iter().map(|s| s.iterations).sum(),
         softened_triangles: rep.embed.offenders_first,
         soften_rounds: rep.embed.local_rounds + rep.embed.global_halvings,
+        identity_fallback: rep.embed.identity_fallback,
         mean_displacement_deg: fin(rep.mean_displacement_deg),
         max_displacement_deg: fin(rep.max_displacement_deg),
     });

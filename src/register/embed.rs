@@ -13,17 +13,21 @@
 //! by a smooth warp whose bending inside it exceeds its height. The mesh
 //! cannot represent the warp there anyway, so the warp is softened there.
 //!
-//! What stays true: the control vectors are only ever scaled by factors in
-//! `[1/2, 1]` per round, by a smooth bump ([`wendland`]) around each
-//! offending triangle (its vertices before and after the warp, plus one
-//! and a half control spacings), so the field stays continuous and
-//! unchanged away from the offenders; after [`MAX_LOCAL_ROUNDS`] rounds
-//! the whole field is halved until the mesh is embedded, and a field that
-//! still fails after [`MAX_GLOBAL_HALVINGS`] halvings is set to zero (the
-//! identity, under which the valid input sphere is embedded), so the result
-//! never turns a triangle over. Deterministic: offenders are taken in face
-//! order, and each control vector's factor is a product over them in that
-//! order.
+//! What stays true: in a local round each control vector is multiplied by
+//! `1 - w/2` for every offending triangle whose smooth bump `w`
+//! ([`wendland`]; reaching the triangle's vertices before and after the
+//! warp, plus one and a half control spacings) covers it, so by at most a
+//! half per offender, and the field stays continuous and unchanged away
+//! from the offenders; after
+//! [`MAX_LOCAL_ROUNDS`] rounds the whole field is halved until the mesh is
+//! embedded, and a field that still fails after [`MAX_GLOBAL_HALVINGS`]
+//! halvings is set to zero and the input directions are returned (the
+//! identity; reported as `identity_fallback`), so the loop always ends and
+//! the result never turns a triangle over. Triangles already squashed in
+//! the input (area ratio under the identity at most [`MIN_AREA_RATIO`],
+//! i.e. slivers decided by rounding) are left out of the check and
+//! counted. Deterministic: offenders are taken in face order; every flow
+//! is per point.
 //!
 //! The fold check on the subject's own mesh follows the practice of the
 //! spherical registration literature (Yeo, Sabuncu, Vercauteren, Ayache,
@@ -59,6 +63,12 @@ pub struct EmbedReport {
     pub global_halvings: usize,
     /// Control vertices whose vector was scaled by less than 0.99.
     pub control_vertices_softened: usize,
+    /// Subject triangles already squashed below the ratio before any warp
+    /// (slivers of the input), left out of the check.
+    pub exempt_triangles: usize,
+    /// The warp was given up: the field is zero and the subject is left
+    /// where it was (only after every softening failed).
+    pub identity_fallback: bool,
 }
 
 /// Wendland's compactly supported C2 bump: `(1 - r)^4 (4 r + 1)` for
@@ -84,10 +94,22 @@ pub fn embed_subject(
     let mut report = EmbedReport::default();
     let original = v.vectors.clone();
     let spacing = grid.spacing(v.level);
+    // Triangles that are already squashed under the identity (slivers and
+    // near-duplicate vertices of the input, where rounding alone decides
+    // the ratio) cannot be helped by softening: they are left out.
+    let identity: Vec<Vec3> = directions.iter().map(|d| unit(*d)).collect();
+    let mut exempt = vec![false; faces.len()];
+    for t in collapsed_faces(faces, directions, &identity, MIN_AREA_RATIO) {
+        exempt[t] = true;
+        report.exempt_triangles += 1;
+    }
     let mut rounds = 0;
     loop {
         let moved = v.flow(grid, directions, -1.0, v.steps(grid));
-        let bad = collapsed_faces(faces, directions, &moved, MIN_AREA_RATIO);
+        let bad: Vec<usize> = collapsed_faces(faces, directions, &moved, MIN_AREA_RATIO)
+            .into_iter()
+            .filter(|&t| !exempt[t])
+            .collect();
         if rounds == 0 {
             report.offenders_first = bad.len();
         }
@@ -103,7 +125,9 @@ pub fn embed_subject(
         if rounds < MAX_LOCAL_ROUNDS {
             report.local_rounds += 1;
             let cp = grid.level_points(v.level);
-            let mut factor = vec![1.0; cp.len()];
+            // Each control vector is multiplied by `1 - w/2` for every
+            // offender whose bump `w` reaches it (offenders in face order).
+            let mut factor = vec![1.0f64; cp.len()];
             for &t in &bad {
                 let pts: Vec<Vec3> = faces[t]
                     .iter()
@@ -134,9 +158,14 @@ pub fn embed_subject(
                 *vk = scale(*vk, 0.5);
             }
         } else {
+            // The identity: the input sphere, whose non-exempt triangles
+            // are all above the ratio by construction.
             for vk in v.vectors.iter_mut() {
                 *vk = [0.0; 3];
             }
+            report.identity_fallback = true;
+            report.control_vertices_softened = original.len();
+            return (identity, report);
         }
         rounds += 1;
     }
@@ -176,7 +205,7 @@ mod tests {
             let r = crate::mesh::cross(centre, *p);
             v.vectors[k] = tangent(scale(r, 8.0 * w), *p);
         }
-        // Subject: a level-2 icosphere (coarse triangles, about 14 degrees).
+        // Subject: a level-2 icosphere (coarse triangles, about 17 degrees).
         let coarse = IcoGrid::new(2);
         let dirs = coarse.points.clone();
         let faces = coarse.faces[2].clone();
@@ -209,6 +238,36 @@ mod tests {
         // Near the centre the swirl was weakened, not removed everywhere.
         assert!(rep.control_vertices_softened > 0);
         assert!(w.max_speed() > 0.0);
+    }
+
+    /// The softening gives the same bits with one and with two threads.
+    #[test]
+    fn softening_does_not_depend_on_the_thread_count() {
+        let grid = IcoGrid::new(4);
+        let centre = unit([-0.5, 0.4, 0.6]);
+        let mut v = VelocityField::zero(&grid, 4);
+        for (k, p) in grid.level_points(4).iter().enumerate() {
+            let w = wendland(angle(*p, centre) / 30f64.to_radians());
+            v.vectors[k] = tangent(scale(crate::mesh::cross(centre, *p), 8.0 * w), *p);
+        }
+        let coarse = IcoGrid::new(2);
+        let run = |threads: usize| {
+            let pool = rayon::ThreadPoolBuilder::new()
+                .num_threads(threads)
+                .build()
+                .expect("a thread pool");
+            pool.install(|| {
+                let mut w = v.clone();
+                let (moved, rep) = embed_subject(&grid, &mut w, &coarse.points, &coarse.faces[2]);
+                (moved, rep, w)
+            })
+        };
+        let (m1, r1, w1) = run(1);
+        let (m2, r2, w2) = run(2);
+        assert!(r1.local_rounds > 0, "the swirl must need softening");
+        assert_eq!(r1, r2);
+        assert_eq!(w1, w2);
+        assert_eq!(m1, m2);
     }
 
     #[test]

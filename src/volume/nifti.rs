@@ -22,10 +22,11 @@
 //! non-finite affine.
 //!
 //! What stays true (the fuzz target `nifti` checks it, docs/fuzzing.md):
-//! memory is bounded by what the file holds, never by what the header
-//! claims: the declared size is compared with the bytes present before the
-//! values are allocated, and gzip inflation stops one byte after the
-//! declared size. An accepted volume has `dims[0] x dims[1] x dims[2]` values and
+//! memory is bounded: a volume may declare at most [`MAX_VOXELS`] voxels;
+//! the declared size is compared with the bytes present before the values
+//! are allocated, and gzip inflation stops one byte after the declared size
+//! (so a gzip bomb costs at most the declared size, itself at most 8 GiB,
+//! before it is refused). An accepted volume has `dims[0] x dims[1] x dims[2]` values and
 //! a finite, invertible affine; values of an integer datatype are finite,
 //! those of a float datatype may be NaN or infinite as stored (NaN often
 //! marks voxels outside a map; the commands that need finite values check).
@@ -47,6 +48,10 @@ const HEADER_BYTES: usize = 348;
 /// First byte the data of a single-file `.nii` can start at (header + the
 /// 4-byte extension flag).
 const MIN_DATA_OFFSET: usize = 352;
+/// Most voxels a volume may declare (2^30: 1024^3, 8 GiB as `f64`). With
+/// the largest type (8 bytes) a gzip stream then inflates to at most 8 GiB
+/// plus the header before it is refused.
+pub const MAX_VOXELS: u64 = 1 << 30;
 
 /// Read the NIfTI-1 volume at `path` (see the module doc for what is refused):
 /// the file is read whole and handed to [`parse_volume`].
@@ -232,6 +237,16 @@ fn layout_of(bytes: &[u8], path: &Path) -> Result<Layout> {
                 format!("dimensions {dims:?} of {dtype:?} overflow the address space"),
             )
         })?;
+    let voxels = dims[0] as u64 * dims[1] as u64 * dims[2] as u64;
+    if voxels > MAX_VOXELS {
+        return Err(Error::bad_file(
+            path,
+            "header dim",
+            format!(
+                "dimensions {dims:?} hold {voxels} voxels; at most {MAX_VOXELS} (2^30, e.g. 1024^3) are read"
+            ),
+        ));
+    }
     Ok(Layout {
         header: h,
         dims,
