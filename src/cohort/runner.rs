@@ -136,16 +136,15 @@ pub fn run(
         group: None,
         report: None,
     };
+    // One pool of `jobs` workers for the units and the report.
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(opts.jobs.max(1))
+        .build()
+        .map_err(|e| Error::Invalid(format!("cannot start {} worker threads: {e}", opts.jobs)))?;
     if !opts.skip_units {
         progress(Event::Start {
             total: selected.len(),
         });
-        let pool = rayon::ThreadPoolBuilder::new()
-            .num_threads(opts.jobs.max(1))
-            .build()
-            .map_err(|e| {
-                Error::Invalid(format!("cannot start {} worker threads: {e}", opts.jobs))
-            })?;
         let results: Vec<(String, Result<(UnitRecord, bool)>)> = pool.install(|| {
             selected
                 .par_iter()
@@ -198,12 +197,6 @@ pub fn run(
         progress(Event::Group);
         summary.group = Some(write_group(m, &all_units, &shared.space)?);
         progress(Event::Report);
-        let pool = rayon::ThreadPoolBuilder::new()
-            .num_threads(opts.jobs.max(1))
-            .build()
-            .map_err(|e| {
-                Error::Invalid(format!("cannot start {} worker threads: {e}", opts.jobs))
-            })?;
         summary.report = Some(
             pool.install(|| write_run_report(m))
                 .map(|()| RUN_REPORT.to_string())

@@ -428,20 +428,7 @@ pub fn face_distortion(native: &TriMesh, sphere: &TriMesh) -> (Vec<f64>, Vec<f64
             )
         })
         .collect();
-    let tn: f64 = an.iter().sum();
-    let ts: f64 = as_.iter().sum();
-    let lar = an
-        .iter()
-        .zip(&as_)
-        .map(|(&a, &s)| {
-            let r = (s / ts) / (a / tn);
-            if r > 0.0 && r.is_finite() {
-                r.ln()
-            } else {
-                f64::NAN
-            }
-        })
-        .collect();
+    let lar = log_area_ratios(&an, &as_);
     let ang = (0..native.n_faces())
         .map(|f| angle_distortion(native.corners(f), sphere.corners(f)))
         .collect();
@@ -488,12 +475,16 @@ pub fn angle_distortion(a: [Vec3; 3], b: [Vec3; 3]) -> f64 {
 /// Per-vertex log area ratio (barycentric vertex areas, normalised by the
 /// totals); NaN where a vertex has no area.
 pub fn vertex_log_area_ratio(native: &TriMesh, sphere: &TriMesh) -> Vec<f64> {
-    let an = native.vertex_areas();
-    let as_ = sphere.vertex_areas();
+    log_area_ratios(&native.vertex_areas(), &sphere.vertex_areas())
+}
+
+/// `ln((s_i / sum s) / (a_i / sum a))` per element; NaN where the ratio is
+/// not positive and finite.
+fn log_area_ratios(an: &[f64], as_: &[f64]) -> Vec<f64> {
     let tn: f64 = an.iter().sum();
     let ts: f64 = as_.iter().sum();
     an.iter()
-        .zip(&as_)
+        .zip(as_)
         .map(|(&a, &s)| {
             let r = (s / ts) / (a / tn);
             if r > 0.0 && r.is_finite() {
