@@ -463,52 +463,41 @@ fn register_template_and_register_commands() {
     assert!(a > b, "correlation {b} -> {a}");
     let m = horosphere::io::read_mesh(&warped).unwrap();
     assert_eq!(m.n_vertices(), 2562);
-    // A feature file of the wrong length: the error names it; no output.
+    // Bad feature files: exit status 1, the error names the file, no output.
+    let refused = |features: [&std::path::Path; 2]| {
+        let out = Command::new(bin)
+            .arg("register")
+            .arg(dir.join("s1.surf.gii"))
+            .arg("--features")
+            .arg(features[0])
+            .arg("--features")
+            .arg(features[1])
+            .arg("--template")
+            .arg(&tdir)
+            .arg("-o")
+            .arg(dir.join("never.surf.gii"))
+            .output()
+            .unwrap();
+        assert_eq!(out.status.code(), Some(1));
+        assert!(!dir.join("never.surf.gii").exists());
+        String::from_utf8_lossy(&out.stderr).into_owned()
+    };
+    // A feature file of the wrong length.
     let short = dir.join("short.shape.gii");
     write_shape(&short, &vec![1.0f32; 642], &MetaData::new()).unwrap();
-    let out = Command::new(bin)
-        .arg("register")
-        .arg(dir.join("s1.surf.gii"))
-        .arg("--features")
-        .arg(dir.join("s1-f0.shape.gii"))
-        .arg("--features")
-        .arg(&short)
-        .arg("--template")
-        .arg(&tdir)
-        .arg("-o")
-        .arg(dir.join("never.surf.gii"))
-        .output()
-        .unwrap();
-    assert_eq!(out.status.code(), Some(1));
-    let err = String::from_utf8_lossy(&out.stderr);
+    let err = refused([&dir.join("s1-f0.shape.gii"), &short]);
     assert!(
         err.contains("short.shape.gii") && err.contains("642 values"),
         "{err}"
     );
-    assert!(!dir.join("never.surf.gii").exists());
-    // A constant feature file: the error names it.
+    // A constant feature file.
     let flat = dir.join("flat.shape.gii");
     write_shape(&flat, &vec![0.5f32; 2562], &MetaData::new()).unwrap();
-    let out = Command::new(bin)
-        .arg("register")
-        .arg(dir.join("s1.surf.gii"))
-        .arg("--features")
-        .arg(&flat)
-        .arg("--features")
-        .arg(dir.join("s1-f1.shape.gii"))
-        .arg("--template")
-        .arg(&tdir)
-        .arg("-o")
-        .arg(dir.join("never.surf.gii"))
-        .output()
-        .unwrap();
-    assert_eq!(out.status.code(), Some(1));
-    let err = String::from_utf8_lossy(&out.stderr);
+    let err = refused([&flat, &dir.join("s1-f1.shape.gii")]);
     assert!(
         err.contains("flat.shape.gii") && err.contains("constant"),
         "{err}"
     );
-    assert!(!dir.join("never.surf.gii").exists());
     let _ = std::fs::remove_dir_all(&dir);
 }
 

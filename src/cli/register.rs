@@ -165,11 +165,7 @@ pub fn run_register(args: &RegisterArgs) -> Result<ExitCode> {
     // A bar over the stages' iterations (stderr; hidden when not a
     // terminal). Stages may stop early, so the bar jumps at stage ends.
     let opts = args.tuning.options();
-    let stages = if opts.stages.is_empty() {
-        horosphere::register::default_stages(template.level)
-    } else {
-        opts.stages.clone()
-    };
+    let stages = opts.stages_for(template.level);
     let total: usize = stages.iter().map(|s| s.iterations).sum();
     let bar = indicatif::ProgressBar::new(total as u64);
     bar.set_style(

@@ -124,6 +124,18 @@ impl Default for RegisterOptions {
     }
 }
 
+impl RegisterOptions {
+    /// The stages a registration to a template of level `level` runs:
+    /// [`RegisterOptions::stages`], or [`default_stages`] when empty.
+    pub fn stages_for(&self, level: u32) -> Vec<Stage> {
+        if self.stages.is_empty() {
+            default_stages(level)
+        } else {
+            self.stages.clone()
+        }
+    }
+}
+
 /// Default stages for a template of level `level` (at least 2): control
 /// levels up to `min(level - 1, 5)`, three stages with feature smoothing of
 /// 16, 8 and 4 degrees FWHM.
@@ -496,11 +508,7 @@ pub fn register_sampled(
             grid.finest()
         )));
     }
-    let stages = if opts.stages.is_empty() {
-        default_stages(level)
-    } else {
-        opts.stages.clone()
-    };
+    let stages = opts.stages_for(level);
     check_options(opts, &stages, level)?;
     let mesh = TriMesh {
         positions: grid.points.clone(),
