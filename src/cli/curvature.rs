@@ -63,7 +63,7 @@ pub fn run(args: &CurvatureArgs) -> Result<ExitCode> {
     meta.set("Name", "mean_curvature");
     meta.set("SourceSurface", name);
     meta.set("Units", "1/mm");
-    horosphere::volume::write_values(&args.out, &h, &meta, args.float64)?;
+    horosphere::io::gifti::write_values(&args.out, &h, &meta, args.float64)?;
     let w = mesh.vertex_areas();
     let sw: f64 = w.iter().sum();
     let s = Summary {

@@ -103,7 +103,7 @@ pub fn run(args: &SampleArgs) -> Result<ExitCode> {
         },
     );
     meta.set("SampleOffsetMillimetres", format!("{}", args.offset));
-    volume::write_values(&args.out, &got.values, &meta, args.float64)?;
+    horosphere::io::gifti::write_values(&args.out, &got.values, &meta, args.float64)?;
     let finite: Vec<f64> = got.values.iter().copied().filter(|v| !v.is_nan()).collect();
     let nan_values = got.values.len() - finite.len();
     let (min, max, mean) = if finite.is_empty() {

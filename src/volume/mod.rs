@@ -31,9 +31,7 @@ pub mod table;
 mod tests;
 
 use crate::error::{Error, Result};
-use crate::io::gifti::{
-    self, CoordTransform, Data, DataArray, Gifti, Intent, MetaData, WriteOptions,
-};
+use crate::io::gifti::{self, CoordTransform, Data, Gifti, Intent, WriteOptions};
 use crate::mesh::TriMesh;
 use affine::{Affine, AffineSource};
 use mask::MaskReport;
@@ -198,21 +196,4 @@ pub fn write_surface(
         &surface_gifti(mesh, volume, source, float64),
         &WriteOptions::default(),
     )
-}
-
-/// Write per-vertex values as a `NIFTI_INTENT_SHAPE` array (FLOAT32, or
-/// FLOAT64 when `float64`), with `meta` as the array's metadata.
-pub fn write_values(path: &Path, values: &[f64], meta: &MetaData, float64: bool) -> Result<()> {
-    let data = if float64 {
-        Data::F64(values.to_vec())
-    } else {
-        Data::F32(values.iter().map(|&v| v as f32).collect())
-    };
-    let mut a = DataArray::new(Intent::Shape, vec![values.len()], data)?;
-    a.meta = meta.clone();
-    let g = Gifti {
-        arrays: vec![a],
-        ..Gifti::default()
-    };
-    gifti::write(path, &g, &WriteOptions::default())
 }

@@ -140,6 +140,23 @@ pub fn write_shape(path: &Path, values: &[f32], meta: &MetaData) -> Result<()> {
     )
 }
 
+/// [`write_shape`] from `f64` values: FLOAT32, or FLOAT64 when `float64`,
+/// with `meta` as the array's metadata.
+pub fn write_values(path: &Path, values: &[f64], meta: &MetaData, float64: bool) -> Result<()> {
+    let data = if float64 {
+        Data::F64(values.to_vec())
+    } else {
+        Data::F32(values.iter().map(|&v| v as f32).collect())
+    };
+    let mut a = DataArray::new(Intent::Shape, vec![values.len()], data)?;
+    a.meta = meta.clone();
+    let g = Gifti {
+        arrays: vec![a],
+        ..Gifti::default()
+    };
+    write(path, &g, &WriteOptions::default())
+}
+
 /// Read the first shape array of the file at `path` (see [`Gifti::to_shape`]).
 pub fn read_shape(path: &Path) -> Result<Shape> {
     read(path)?.to_shape(path)
